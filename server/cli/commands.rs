@@ -1,0 +1,316 @@
+//! The subcommands that talk to the database or serve the web application.
+
+use std::io::BufRead;
+use std::path::PathBuf;
+
+use anyhow::{Context, bail};
+use axum::http::HeaderName;
+use tokio::net::TcpListener;
+
+use super::{Command, DemoArgs, ServeArgs, TokenCommand, UserCommand};
+use crate::domain::Timestamp;
+use crate::ops::OpError;
+use crate::ops::users::{self as user_ops, By, NewUser};
+use crate::store::tokens::Scope;
+use crate::store::{Store, users};
+use crate::web::{AppState, WebConfig};
+
+pub async fn run(command: Command) -> anyhow::Result<()> {
+    match command {
+        Command::Serve(args) => serve(args).await,
+        Command::Demo(args) => demo(args).await,
+        Command::Migrate(db) => {
+            let store = Store::connect(&db.database_url).await?;
+            store.migrate().await?;
+            println!("migrated {}", store.backend().name());
+            Ok(())
+        }
+        Command::User(cmd) => user(cmd).await,
+        Command::Token(cmd) => token(cmd).await,
+        Command::Classify(_) => unreachable!("classify runs without the runtime"),
+    }
+}
+
+/// Turns an operation's error into one line for the terminal, listing every field problem.
+fn explain(e: OpError) -> anyhow::Error {
+    match e {
+        OpError::Invalid(p) => anyhow::anyhow!(
+            "{}",
+            p.0.iter()
+                .map(|f| f.message.clone())
+                .collect::<Vec<_>>()
+                .join("; ")
+        ),
+        other => anyhow::anyhow!("{other}"),
+    }
+}
+
+fn read_password() -> anyhow::Result<String> {
+    let mut line = String::new();
+    std::io::stdin()
+        .lock()
+        .read_line(&mut line)
+        .context("cannot read the password from standard input")?;
+    let password = line.trim_end_matches(['\n', '\r']).to_string();
+    if password.is_empty() {
+        bail!(
+            "no password on standard input: pipe it in, e.g. `printf '%s\\n' \"$PW\" | cutpoints user add ...`"
+        );
+    }
+    Ok(password)
+}
+
+async fn shutdown_signal() {
+    let ctrl_c = async {
+        let _ = tokio::signal::ctrl_c().await;
+    };
+    #[cfg(unix)]
+    let terminate = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(_) => std::future::pending::<()>().await,
+        }
+    };
+    #[cfg(not(unix))]
+    let terminate = std::future::pending::<()>();
+    tokio::select! {
+        _ = ctrl_c => {},
+        _ = terminate => {},
+    }
+    tracing::info!("shutting down: finishing requests in flight");
+}
+
+async fn bind(addr: &str) -> anyhow::Result<TcpListener> {
+    TcpListener::bind(addr).await.with_context(|| {
+        format!("cannot listen on {addr} (is another server using it? choose one with --bind)")
+    })
+}
+
+fn web_config(args: &ServeArgs) -> anyhow::Result<WebConfig> {
+    let forwarded_header = match &args.forwarded_header {
+        Some(name) if !name.trim().is_empty() => Some(
+            HeaderName::try_from(name.trim())
+                .with_context(|| format!("--forwarded-header {name:?} is not a header name"))?,
+        ),
+        _ => None,
+    };
+    Ok(WebConfig {
+        secure_cookies: args.secure_cookies,
+        forwarded_header,
+        ..WebConfig::default()
+    })
+}
+
+async fn serve(args: ServeArgs) -> anyhow::Result<()> {
+    let config = web_config(&args)?;
+    let store = Store::open(&args.db.database_url).await?;
+    if users::count(&store).await? == 0 {
+        tracing::warn!(
+            "no people yet: add the first admin with `cutpoints user add --username NAME --role admin --password-stdin`"
+        );
+    }
+    let listener = bind(&args.bind).await?;
+    tracing::info!(
+        address = %listener.local_addr()?,
+        database = store.backend().name(),
+        "cutpoints is serving"
+    );
+    crate::web::serve(listener, AppState::new(store, config), shutdown_signal()).await?;
+    Ok(())
+}
+
+fn demo_folder() -> anyhow::Result<PathBuf> {
+    let name = crate::auth::secret::random_token("cutpoints-demo")
+        .chars()
+        .take(28)
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' {
+                c
+            } else {
+                'x'
+            }
+        })
+        .collect::<String>();
+    let dir = std::env::temp_dir().join(name);
+    std::fs::create_dir_all(&dir)
+        .with_context(|| format!("cannot create the demo folder {}", dir.display()))?;
+    Ok(dir)
+}
+
+async fn demo(args: DemoArgs) -> anyhow::Result<()> {
+    let url = match &args.database_url {
+        Some(url) => url.clone(),
+        None => format!("sqlite://{}", demo_folder()?.join("demo.db").display()),
+    };
+    let store = Store::open(&url).await?;
+    if store.holds_data().await? {
+        bail!(
+            "{url} already holds data; the demo only seeds an empty database (omit --database-url for a fresh one)"
+        );
+    }
+    crate::demo::seed(&store).await.map_err(explain)?;
+    let listener = bind(&args.bind).await?;
+    let addr = listener.local_addr()?;
+    println!("cutpoints demo: Quillfield Cycle Commons, an invented bike-share cooperative");
+    println!("database: {url}");
+    println!();
+    println!("Open http://{addr}/ and sign in as one of:");
+    println!(
+        "  {:<8} {:<20} {:<18} roles",
+        "username", "password", "name"
+    );
+    for p in crate::demo::PEOPLE {
+        println!(
+            "  {:<8} {:<20} {:<18} {}",
+            p.username,
+            p.password(),
+            p.display_name,
+            p.roles
+        );
+    }
+    println!();
+    println!("Press Ctrl-C to stop.");
+    crate::web::serve(
+        listener,
+        AppState::new(store, WebConfig::default()),
+        shutdown_signal(),
+    )
+    .await?;
+    Ok(())
+}
+
+async fn user(cmd: UserCommand) -> anyhow::Result<()> {
+    match cmd {
+        UserCommand::Add {
+            username,
+            role,
+            display_name,
+            password_stdin: _,
+            db,
+        } => {
+            let password = read_password()?;
+            let store = Store::open(&db.database_url).await?;
+            let input = NewUser {
+                username,
+                display_name,
+                roles: role,
+                password,
+            };
+            let user = user_ops::add(&store, By::Operator, &input)
+                .await
+                .map_err(explain)?;
+            println!(
+                "added {} ({}) with roles {}",
+                user.username,
+                user.display_name,
+                user.roles.to_list()
+            );
+        }
+        UserCommand::List { db } => {
+            let store = Store::open(&db.database_url).await?;
+            for u in users::list(&store).await? {
+                println!(
+                    "{}\t{}\t{}\t{}",
+                    u.username,
+                    u.roles.to_list(),
+                    if u.active { "active" } else { "deactivated" },
+                    u.display_name
+                );
+            }
+        }
+        UserCommand::SetRoles { username, role, db } => {
+            let store = Store::open(&db.database_url).await?;
+            let user = user_ops::set_roles(&store, By::Operator, &username, &role)
+                .await
+                .map_err(explain)?;
+            println!("{} now has roles {}", user.username, user.roles.to_list());
+        }
+        UserCommand::Deactivate { username, db } => {
+            let store = Store::open(&db.database_url).await?;
+            user_ops::set_active(&store, By::Operator, &username, false)
+                .await
+                .map_err(explain)?;
+            println!("deactivated {username}");
+        }
+        UserCommand::Activate { username, db } => {
+            let store = Store::open(&db.database_url).await?;
+            user_ops::set_active(&store, By::Operator, &username, true)
+                .await
+                .map_err(explain)?;
+            println!("activated {username}");
+        }
+        UserCommand::ResetPassword {
+            username,
+            password_stdin: _,
+            db,
+        } => {
+            let password = read_password()?;
+            let store = Store::open(&db.database_url).await?;
+            user_ops::reset_password(&store, By::Operator, &username, &password)
+                .await
+                .map_err(explain)?;
+            println!("reset the password of {username}; their sessions ended");
+        }
+    }
+    Ok(())
+}
+
+async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
+    match cmd {
+        TokenCommand::Issue {
+            username,
+            scope,
+            label,
+            expires_in_days,
+            db,
+        } => {
+            let scope = Scope::parse(&scope).map_err(anyhow::Error::msg)?;
+            let store = Store::open(&db.database_url).await?;
+            let expires_at = expires_in_days.map(|d| Timestamp::now().plus_seconds(d * 86_400));
+            let (secret, _) =
+                user_ops::issue_token(&store, By::Operator, &username, scope, &label, expires_at)
+                    .await
+                    .map_err(explain)?;
+            println!("{secret}");
+        }
+        TokenCommand::List { username, db } => {
+            let store = Store::open(&db.database_url).await?;
+            let now = Timestamp::now();
+            println!("id\tprefix\tusername\tscope\tstatus\texpires_at\tlabel");
+            for t in user_ops::list_tokens(&store, By::Operator, username.as_deref())
+                .await
+                .map_err(explain)?
+            {
+                let status = if t.revoked_at.is_some() {
+                    "revoked"
+                } else if t.is_usable(now) {
+                    "usable"
+                } else {
+                    "expired"
+                };
+                println!(
+                    "{}\t{}\t{}\t{}\t{}\t{}\t{}",
+                    t.id,
+                    t.prefix,
+                    t.username,
+                    t.scope.as_str(),
+                    status,
+                    t.expires_at
+                        .map(|e| e.to_string())
+                        .unwrap_or_else(|| "never".into()),
+                    t.label
+                );
+            }
+        }
+        TokenCommand::Revoke { id, db } => {
+            let store = Store::open(&db.database_url).await?;
+            let t = user_ops::revoke_token(&store, By::Operator, id)
+                .await
+                .map_err(explain)?;
+            println!("revoked token {} ({}) of {}", t.id, t.prefix, t.username);
+        }
+    }
+    Ok(())
+}

@@ -1,0 +1,206 @@
+//! The command line. Every flag also reads a `CUTPOINTS_*` environment variable; every
+//! subcommand that touches the database takes `--database-url`.
+
+mod classify;
+mod commands;
+
+use std::process::ExitCode;
+
+use clap::{Args, Parser, Subcommand};
+
+pub const DEFAULT_DATABASE_URL: &str = "sqlite://cutpoints.db";
+pub const DEFAULT_BIND: &str = "127.0.0.1:8080";
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "cutpoints",
+    version,
+    about = "Agree, sign off and publish the thresholds that decide when a dashboard metric needs action"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct DatabaseArgs {
+    /// Database to use: sqlite://FILE (created if missing) or postgres://USER@HOST/DB.
+    #[arg(long, env = "CUTPOINTS_DATABASE_URL", default_value = DEFAULT_DATABASE_URL)]
+    pub database_url: String,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct ServeArgs {
+    #[command(flatten)]
+    pub db: DatabaseArgs,
+    /// Address and port to listen on.
+    #[arg(long, env = "CUTPOINTS_BIND", default_value = DEFAULT_BIND)]
+    pub bind: String,
+    /// The site is reached over https (via a TLS-terminating proxy): mark cookies Secure and
+    /// send Strict-Transport-Security.
+    #[arg(long, env = "CUTPOINTS_SECURE_COOKIES")]
+    pub secure_cookies: bool,
+    /// Header in which a trusted reverse proxy passes the client address (for sign-in
+    /// throttling), e.g. X-Forwarded-For. Leave unset when clients connect directly.
+    #[arg(long, env = "CUTPOINTS_FORWARDED_HEADER")]
+    pub forwarded_header: Option<String>,
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct DemoArgs {
+    /// Address and port to listen on.
+    #[arg(long, env = "CUTPOINTS_BIND", default_value = DEFAULT_BIND)]
+    pub bind: String,
+    /// An empty database to seed instead of a fresh SQLite file in a temporary folder. The
+    /// demo ignores CUTPOINTS_DATABASE_URL so that it never seeds a real database by mistake.
+    #[arg(long, env = "CUTPOINTS_DEMO_DATABASE_URL")]
+    pub database_url: Option<String>,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Run the web application.
+    Serve(ServeArgs),
+    /// Run the application on a fresh database seeded with an invented scenario.
+    Demo(DemoArgs),
+    /// Apply database migrations and exit.
+    Migrate(DatabaseArgs),
+    /// Manage people.
+    #[command(subcommand)]
+    User(UserCommand),
+    /// Manage API tokens.
+    #[command(subcommand)]
+    Token(TokenCommand),
+    /// Classify values against a cut set; prints one JSON object per value per line.
+    Classify(classify::ClassifyArgs),
+}
+
+#[derive(Subcommand, Debug)]
+pub enum UserCommand {
+    /// Add a person (the first admin too). The password is read from standard input.
+    Add {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        /// One or more of admin, owner, reviewer, signatory, auditor, viewer, comma-separated.
+        #[arg(long, env = "CUTPOINTS_ROLE")]
+        role: String,
+        /// Shown beside every decision the person makes; defaults to the username.
+        #[arg(long, env = "CUTPOINTS_DISPLAY_NAME", default_value = "")]
+        display_name: String,
+        /// Read the password from the first line of standard input.
+        #[arg(long, env = "CUTPOINTS_PASSWORD_STDIN", required = true)]
+        password_stdin: bool,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// List people and their roles.
+    List {
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Replace a person's roles.
+    SetRoles {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        #[arg(long, env = "CUTPOINTS_ROLE")]
+        role: String,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Deactivate a person: their sessions end and their tokens stop working.
+    Deactivate {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Let a deactivated person sign in again.
+    Activate {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Set a new password, read from standard input; the person's sessions end.
+    ResetPassword {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        #[arg(long, env = "CUTPOINTS_PASSWORD_STDIN", required = true)]
+        password_stdin: bool,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+pub enum TokenCommand {
+    /// Issue a token; prints the token alone on standard output (it is not shown again).
+    Issue {
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: String,
+        /// read: GET requests only; write: whatever the person may do.
+        #[arg(long, env = "CUTPOINTS_SCOPE", default_value = "read", value_parser = ["read", "write"])]
+        scope: String,
+        /// What the token is for.
+        #[arg(long, env = "CUTPOINTS_LABEL", default_value = "")]
+        label: String,
+        /// Days until the token expires; without it the token does not expire.
+        #[arg(long, env = "CUTPOINTS_EXPIRES_IN_DAYS", value_parser = clap::value_parser!(i64).range(1..=3650))]
+        expires_in_days: Option<i64>,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// List tokens (never their secrets).
+    List {
+        /// Only this person's tokens.
+        #[arg(long, env = "CUTPOINTS_USERNAME")]
+        username: Option<String>,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Revoke a token by its id (see `token list`).
+    Revoke {
+        #[arg(long, env = "CUTPOINTS_TOKEN_ID")]
+        id: i64,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+/// Parses the command line and runs it; the exit code is 0 on success, 2 for bad input on
+/// the command line, 1 for anything else that failed.
+pub fn run() -> ExitCode {
+    let cli = Cli::parse();
+    if let Command::Classify(args) = &cli.command {
+        return classify::run(args);
+    }
+    init_logging(matches!(cli.command, Command::Serve(_) | Command::Demo(_)));
+    let runtime = match tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()
+    {
+        Ok(rt) => rt,
+        Err(e) => {
+            eprintln!("error: cannot start the async runtime: {e}");
+            return ExitCode::FAILURE;
+        }
+    };
+    match runtime.block_on(commands::run(cli.command)) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::FAILURE
+        }
+    }
+}
+
+fn init_logging(server: bool) {
+    use tracing_subscriber::EnvFilter;
+    let default = if server { "info" } else { "warn" };
+    let filter =
+        EnvFilter::try_from_env("CUTPOINTS_LOG").unwrap_or_else(|_| EnvFilter::new(default));
+    let _ = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .try_init();
+}

@@ -1,0 +1,15 @@
+//! Validated domain types. Each is built by a parsing constructor that refuses bad input, so
+//! the layers above never check the same thing twice.
+
+pub mod key;
+pub mod metric;
+pub mod number;
+pub mod people;
+pub mod text;
+pub mod thresholds;
+pub mod time;
+
+pub use key::MetricKey;
+pub use people::{Role, Roles, Username};
+pub use thresholds::{CutSet, Direction, Shades};
+pub use time::Timestamp;

@@ -1,0 +1,89 @@
+//! UTC timestamps in the one format DESIGN.md fixes: `YYYY-MM-DDTHH:MM:SS.ffffffZ`.
+//!
+//! Stored as that fixed-width text on both databases, so that string order is time order and
+//! comparisons in SQL work the same on SQLite and PostgreSQL.
+
+use std::fmt;
+use std::str::FromStr;
+
+use chrono::{DateTime, NaiveDate, SecondsFormat, SubsecRound, Utc};
+use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+/// A UTC instant truncated to whole microseconds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub struct Timestamp(DateTime<Utc>);
+
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error(
+    "{0:?} is not a time: expected RFC 3339 such as 2026-03-01T09:30:00Z, or a bare date such as 2026-03-01"
+)]
+pub struct TimeParseError(pub String);
+
+impl Timestamp {
+    pub fn now() -> Timestamp {
+        Timestamp::from_datetime(Utc::now())
+    }
+
+    pub fn from_datetime(t: DateTime<Utc>) -> Timestamp {
+        Timestamp(t.trunc_subsecs(6))
+    }
+
+    pub fn as_datetime(&self) -> DateTime<Utc> {
+        self.0
+    }
+
+    /// Adds a (possibly negative) number of seconds.
+    pub fn plus_seconds(&self, seconds: i64) -> Timestamp {
+        Timestamp(self.0 + chrono::Duration::seconds(seconds))
+    }
+
+    /// Parses any RFC 3339 time (a `+` that arrived as a space in a query string is accepted)
+    /// or a bare date, which means 00:00:00Z.
+    pub fn parse(text: &str) -> Result<Timestamp, TimeParseError> {
+        let trimmed = text.trim();
+        if let Ok(date) = NaiveDate::parse_from_str(trimmed, "%Y-%m-%d") {
+            if trimmed.len() == 10 {
+                let t = date
+                    .and_hms_opt(0, 0, 0)
+                    .expect("midnight exists")
+                    .and_utc();
+                return Ok(Timestamp(t));
+            }
+        }
+        let mut candidate = trimmed.to_string();
+        // "2026-03-01T09:30:00 01:00": the '+' of the offset became a space in a query string.
+        if let Some(pos) = candidate.rfind(' ').filter(|pos| *pos >= 19) {
+            candidate.replace_range(pos..pos + 1, "+");
+        }
+        DateTime::parse_from_rfc3339(&candidate)
+            .map(|t| Timestamp::from_datetime(t.with_timezone(&Utc)))
+            .map_err(|_| TimeParseError(text.to_string()))
+    }
+}
+
+impl fmt::Display for Timestamp {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.0.to_rfc3339_opts(SecondsFormat::Micros, true))
+    }
+}
+
+impl FromStr for Timestamp {
+    type Err = TimeParseError;
+
+    fn from_str(s: &str) -> Result<Self, Self::Err> {
+        Timestamp::parse(s)
+    }
+}
+
+impl Serialize for Timestamp {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        serializer.collect_str(self)
+    }
+}
+
+impl<'de> Deserialize<'de> for Timestamp {
+    fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
+        let text = String::deserialize(deserializer)?;
+        Timestamp::parse(&text).map_err(serde::de::Error::custom)
+    }
+}

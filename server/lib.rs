@@ -1,0 +1,24 @@
+//! cutpoints: a register where organisations agree, sign off and publish the thresholds that
+//! decide when a dashboard metric needs action.
+//!
+//! Layers, each using only those below it:
+//!
+//! ```text
+//! cli      clap commands
+//! web      axum routes, pages, JSON errors
+//! ops      each action: permission, validation, store call (no HTTP)
+//! store    all SQL for both backends; each change and its event in one transaction
+//! engine   classification (pure)            auth   password hashing, secrets (pure)
+//! domain   validated types: metric key, direction, cut set, times, people
+//! ```
+
+pub mod auth;
+pub mod cli;
+pub mod demo;
+pub mod domain;
+pub mod engine;
+pub mod ops;
+pub mod store;
+pub mod web;
+
+pub use web::{AppState, WebConfig, app, serve};

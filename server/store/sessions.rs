@@ -1,0 +1,122 @@
+//! Browser sessions. The cookie carries a random secret; the database keeps its SHA-256, so a
+//! copy of the database does not hand out live sessions.
+
+use sqlx::Row;
+
+use super::users::User;
+use super::{Store, StoreResult, WriteTx};
+use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::{Roles, Timestamp};
+
+/// A session ends after this long without a request (OWASP ASVS 4.0.3 §3.3.2 allows 12 hours
+/// of use; idle sessions end sooner).
+pub const IDLE_SECONDS: i64 = 2 * 60 * 60;
+/// A session ends this long after sign-in, however busy.
+pub const ABSOLUTE_SECONDS: i64 = 12 * 60 * 60;
+/// `last_seen_at` is refreshed at most this often, to keep reads from becoming writes.
+const TOUCH_EVERY_SECONDS: i64 = 60;
+
+/// A signed-in browser session.
+#[derive(Clone, Debug)]
+pub struct Session {
+    pub id_hash: String,
+    pub csrf_token: String,
+    pub user: User,
+}
+
+/// Creates a session for a user and returns the cookie secret and the session.
+pub async fn create(store: &Store, user: &User) -> StoreResult<(String, Session)> {
+    let secret = random_token("s");
+    let csrf = random_token("c");
+    let id_hash = stored_hash(&secret);
+    let now = Timestamp::now();
+    sqlx::query(
+        "INSERT INTO sessions (id_hash, user_id, csrf_token, created_at, last_seen_at, expires_at) \
+         VALUES ($1, $2, $3, $4, $4, $5)",
+    )
+    .bind(&id_hash)
+    .bind(user.id)
+    .bind(&csrf)
+    .bind(now)
+    .bind(now.plus_seconds(ABSOLUTE_SECONDS))
+    .execute(store.pool())
+    .await?;
+    Ok((
+        secret,
+        Session {
+            id_hash,
+            csrf_token: csrf,
+            user: user.clone(),
+        },
+    ))
+}
+
+/// The live session for a cookie secret, if any: unexpired, recently used, and belonging to an
+/// active person.
+pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>> {
+    let id_hash = stored_hash(secret);
+    let now = Timestamp::now();
+    let row = sqlx::query(
+        "SELECT s.csrf_token, s.last_seen_at, u.id, u.username, u.display_name, u.roles, u.created_at \
+         FROM sessions s JOIN users u ON u.id = s.user_id \
+         WHERE s.id_hash = $1 AND s.expires_at > $2 AND s.last_seen_at > $3 AND u.active = 1",
+    )
+    .bind(&id_hash)
+    .bind(now)
+    .bind(now.plus_seconds(-IDLE_SECONDS))
+    .fetch_optional(store.pool())
+    .await?;
+    let Some(row) = row else {
+        return Ok(None);
+    };
+    let last_seen: Timestamp = row.try_get("last_seen_at")?;
+    if last_seen < now.plus_seconds(-TOUCH_EVERY_SECONDS) {
+        sqlx::query("UPDATE sessions SET last_seen_at = $1 WHERE id_hash = $2")
+            .bind(now)
+            .bind(&id_hash)
+            .execute(store.pool())
+            .await?;
+    }
+    let roles: String = row.try_get("roles")?;
+    Ok(Some(Session {
+        id_hash,
+        csrf_token: row.try_get("csrf_token")?,
+        user: User {
+            id: row.try_get("id")?,
+            username: row.try_get("username")?,
+            display_name: row.try_get("display_name")?,
+            roles: Roles::parse_list(&roles).unwrap_or_default(),
+            active: true,
+            created_at: row.try_get("created_at")?,
+        },
+    }))
+}
+
+/// Ends one session (sign-out).
+pub async fn end(store: &Store, id_hash: &str) -> StoreResult<()> {
+    sqlx::query("DELETE FROM sessions WHERE id_hash = $1")
+        .bind(id_hash)
+        .execute(store.pool())
+        .await?;
+    Ok(())
+}
+
+/// Ends every session of a person (deactivation, password reset).
+pub(super) async fn end_all_for(w: &mut WriteTx, user_id: i64) -> StoreResult<()> {
+    sqlx::query("DELETE FROM sessions WHERE user_id = $1")
+        .bind(user_id)
+        .execute(w.conn())
+        .await?;
+    Ok(())
+}
+
+/// Removes sessions that can no longer be used.
+pub async fn purge_expired(store: &Store) -> StoreResult<u64> {
+    let now = Timestamp::now();
+    let done = sqlx::query("DELETE FROM sessions WHERE expires_at <= $1 OR last_seen_at <= $2")
+        .bind(now)
+        .bind(now.plus_seconds(-IDLE_SECONDS))
+        .execute(store.pool())
+        .await?;
+    Ok(done.rows_affected())
+}

@@ -1,0 +1,215 @@
+//! API tokens: a random secret shown once; the database keeps its SHA-256, a short prefix to
+//! recognise it by, its scope, expiry and revocation.
+
+use serde::Serialize;
+use serde_json::json;
+use sqlx::Row;
+use sqlx::any::AnyRow;
+
+use super::users::User;
+use super::{Actor, Store, StoreError, StoreResult, WriteTx};
+use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::{Roles, Timestamp};
+
+/// What a token may do.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Scope {
+    /// GET requests only.
+    Read,
+    /// Everything the token's owner may do.
+    Write,
+}
+
+impl Scope {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Scope::Read => "read",
+            Scope::Write => "write",
+        }
+    }
+
+    pub fn parse(text: &str) -> Result<Scope, String> {
+        match text {
+            "read" => Ok(Scope::Read),
+            "write" => Ok(Scope::Write),
+            other => Err(format!("unknown scope {other:?}: expected read or write")),
+        }
+    }
+}
+
+#[derive(Clone, Debug, Serialize)]
+pub struct TokenInfo {
+    pub id: i64,
+    pub username: String,
+    pub prefix: String,
+    pub scope: Scope,
+    pub label: String,
+    pub created_at: Timestamp,
+    pub expires_at: Option<Timestamp>,
+    pub revoked_at: Option<Timestamp>,
+    pub last_used_at: Option<Timestamp>,
+}
+
+impl TokenInfo {
+    pub fn is_usable(&self, now: Timestamp) -> bool {
+        self.revoked_at.is_none() && self.expires_at.is_none_or(|t| t > now)
+    }
+}
+
+fn info_from_row(row: &AnyRow) -> StoreResult<TokenInfo> {
+    let scope: String = row.try_get("scope")?;
+    Ok(TokenInfo {
+        id: row.try_get("id")?,
+        username: row.try_get("username")?,
+        prefix: row.try_get("prefix")?,
+        scope: Scope::parse(&scope).unwrap_or(Scope::Read),
+        label: row.try_get("label")?,
+        created_at: row.try_get("created_at")?,
+        expires_at: row.try_get("expires_at")?,
+        revoked_at: row.try_get("revoked_at")?,
+        last_used_at: row.try_get("last_used_at")?,
+    })
+}
+
+/// The shown prefix: enough to tell tokens apart in a list, far too little to guess the rest.
+const PREFIX_LEN: usize = 10;
+
+/// Issues a token for a person; returns the secret (shown once) and what is stored.
+pub async fn issue(
+    w: &mut WriteTx,
+    actor: &Actor,
+    user: &User,
+    scope: Scope,
+    label: &str,
+    expires_at: Option<Timestamp>,
+) -> StoreResult<(String, TokenInfo)> {
+    let secret = random_token("cpt");
+    let prefix: String = secret.chars().take(PREFIX_LEN).collect();
+    let now = w.now();
+    let id: i64 = sqlx::query_scalar(
+        "INSERT INTO api_tokens (user_id, token_hash, prefix, scope, label, created_at, expires_at) \
+         VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id",
+    )
+    .bind(user.id)
+    .bind(stored_hash(&secret))
+    .bind(&prefix)
+    .bind(scope.as_str())
+    .bind(label)
+    .bind(now)
+    .bind(expires_at)
+    .fetch_one(w.conn())
+    .await?;
+    w.record(
+        actor,
+        "token.issued",
+        &format!("token:{id}"),
+        json!({"after": {"username": user.username, "prefix": prefix, "scope": scope, "label": label, "expires_at": expires_at}}),
+    )
+    .await?;
+    Ok((
+        secret,
+        TokenInfo {
+            id,
+            username: user.username.clone(),
+            prefix,
+            scope,
+            label: label.to_string(),
+            created_at: now,
+            expires_at,
+            revoked_at: None,
+            last_used_at: None,
+        },
+    ))
+}
+
+/// Revokes a token; revoking twice is a conflict.
+pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<TokenInfo> {
+    let row = sqlx::query(concat!(
+        "SELECT t.id, u.username, t.prefix, t.scope, t.label, t.created_at, t.expires_at, ",
+        "t.revoked_at, t.last_used_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+        "WHERE t.id = $1"
+    ))
+    .bind(id)
+    .fetch_optional(w.conn())
+    .await?;
+    let mut info = row
+        .as_ref()
+        .map(info_from_row)
+        .transpose()?
+        .ok_or_else(|| StoreError::NotFound(format!("no token with id {id}")))?;
+    if info.revoked_at.is_some() {
+        return Err(StoreError::Conflict(format!(
+            "token {id} was already revoked"
+        )));
+    }
+    let now = w.now();
+    sqlx::query("UPDATE api_tokens SET revoked_at = $1 WHERE id = $2")
+        .bind(now)
+        .bind(id)
+        .execute(w.conn())
+        .await?;
+    w.record(
+        actor,
+        "token.revoked",
+        &format!("token:{id}"),
+        json!({"before": {"revoked_at": null}, "after": {"revoked_at": now}, "username": info.username, "prefix": info.prefix}),
+    )
+    .await?;
+    info.revoked_at = Some(now);
+    Ok(info)
+}
+
+/// Every token, newest first, optionally of one person.
+pub async fn list(store: &Store, username: Option<&str>) -> StoreResult<Vec<TokenInfo>> {
+    let rows = sqlx::query(concat!(
+        "SELECT t.id, u.username, t.prefix, t.scope, t.label, t.created_at, t.expires_at, ",
+        "t.revoked_at, t.last_used_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+        "WHERE ($1 = '' OR u.username = $1) ORDER BY t.id DESC"
+    ))
+    .bind(username.unwrap_or(""))
+    .fetch_all(store.pool())
+    .await?;
+    rows.iter().map(info_from_row).collect()
+}
+
+/// The person and scope behind a presented token, if it is usable: not revoked, not expired,
+/// and its owner active.
+pub async fn authenticate(store: &Store, secret: &str) -> StoreResult<Option<(User, Scope)>> {
+    let now = Timestamp::now();
+    let row = sqlx::query(concat!(
+        "SELECT t.id AS token_id, t.scope, t.last_used_at, u.id, u.username, u.display_name, ",
+        "u.roles, u.created_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+        "WHERE t.token_hash = $1 AND t.revoked_at IS NULL ",
+        "AND (t.expires_at IS NULL OR t.expires_at > $2) AND u.active = 1"
+    ))
+    .bind(stored_hash(secret))
+    .bind(now)
+    .fetch_optional(store.pool())
+    .await?;
+    let Some(row) = row else {
+        return Ok(None);
+    };
+    let token_id: i64 = row.try_get("token_id")?;
+    let last_used: Option<Timestamp> = row.try_get("last_used_at")?;
+    if last_used.is_none_or(|t| t < now.plus_seconds(-60)) {
+        sqlx::query("UPDATE api_tokens SET last_used_at = $1 WHERE id = $2")
+            .bind(now)
+            .bind(token_id)
+            .execute(store.pool())
+            .await?;
+    }
+    let scope: String = row.try_get("scope")?;
+    let roles: String = row.try_get("roles")?;
+    Ok(Some((
+        User {
+            id: row.try_get("id")?,
+            username: row.try_get("username")?,
+            display_name: row.try_get("display_name")?,
+            roles: Roles::parse_list(&roles).unwrap_or_default(),
+            active: true,
+            created_at: row.try_get("created_at")?,
+        },
+        Scope::parse(&scope).unwrap_or(Scope::Read),
+    )))
+}

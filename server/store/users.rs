@@ -1,0 +1,273 @@
+//! People: accounts, roles, activation and passwords.
+
+use serde::Serialize;
+use serde_json::json;
+use sqlx::Row;
+use sqlx::any::AnyRow;
+
+use super::{Actor, Store, StoreError, StoreResult, WriteTx};
+use crate::domain::{Roles, Timestamp, Username};
+
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct User {
+    #[serde(skip)]
+    pub id: i64,
+    pub username: String,
+    pub display_name: String,
+    pub roles: Roles,
+    pub active: bool,
+    pub created_at: Timestamp,
+}
+
+fn user_from_row(row: &AnyRow) -> StoreResult<User> {
+    let roles: String = row.try_get("roles")?;
+    let active: i64 = row.try_get("active")?;
+    Ok(User {
+        id: row.try_get("id")?,
+        username: row.try_get("username")?,
+        display_name: row.try_get("display_name")?,
+        roles: Roles::parse_list(&roles).unwrap_or_default(),
+        active: active != 0,
+        created_at: row.try_get("created_at")?,
+    })
+}
+
+/// `SELECT <user columns> FROM users <rest>` as one static string.
+macro_rules! select_users {
+    ($rest:literal) => {
+        concat!(
+            "SELECT id, username, display_name, roles, active, created_at, password_hash FROM users ",
+            $rest
+        )
+    };
+}
+
+fn not_found(username: &str) -> StoreError {
+    StoreError::NotFound(format!("no user named {username:?}"))
+}
+
+/// Creates a user; the caller has validated the fields and hashed the password.
+pub async fn create(
+    w: &mut WriteTx,
+    actor: &Actor,
+    username: &Username,
+    display_name: &str,
+    roles: &Roles,
+    password_hash: &str,
+) -> StoreResult<User> {
+    let exists: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM users WHERE username = $1")
+        .bind(username.as_str())
+        .fetch_one(w.conn())
+        .await?;
+    if exists > 0 {
+        return Err(StoreError::Conflict(format!(
+            "a user named {:?} already exists",
+            username.as_str()
+        )));
+    }
+    let now = w.now();
+    let id: i64 = sqlx::query_scalar(
+        "INSERT INTO users (username, display_name, roles, password_hash, active, created_at, updated_at) \
+         VALUES ($1, $2, $3, $4, 1, $5, $5) RETURNING id",
+    )
+    .bind(username.as_str())
+    .bind(display_name)
+    .bind(roles.to_list())
+    .bind(password_hash)
+    .bind(now)
+    .fetch_one(w.conn())
+    .await?;
+    w.record(
+        actor,
+        "user.created",
+        &subject(username.as_str()),
+        json!({"after": {"username": username.as_str(), "display_name": display_name, "roles": roles, "active": true}}),
+    )
+    .await?;
+    Ok(User {
+        id,
+        username: username.as_str().to_string(),
+        display_name: display_name.to_string(),
+        roles: roles.clone(),
+        active: true,
+        created_at: now,
+    })
+}
+
+pub fn subject(username: &str) -> String {
+    format!("user:{username}")
+}
+
+pub async fn find(store: &Store, username: &str) -> StoreResult<Option<User>> {
+    let row = sqlx::query(select_users!("WHERE username = $1"))
+        .bind(username)
+        .fetch_optional(store.pool())
+        .await?;
+    row.as_ref().map(user_from_row).transpose()
+}
+
+pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
+    find(store, username)
+        .await?
+        .ok_or_else(|| not_found(username))
+}
+
+pub async fn by_id(store: &Store, id: i64) -> StoreResult<Option<User>> {
+    let row = sqlx::query(select_users!("WHERE id = $1"))
+        .bind(id)
+        .fetch_optional(store.pool())
+        .await?;
+    row.as_ref().map(user_from_row).transpose()
+}
+
+/// The user and stored password hash for a sign-in attempt.
+pub async fn credentials(store: &Store, username: &str) -> StoreResult<Option<(User, String)>> {
+    let row = sqlx::query(select_users!("WHERE username = $1"))
+        .bind(username)
+        .fetch_optional(store.pool())
+        .await?;
+    match row {
+        Some(row) => Ok(Some((user_from_row(&row)?, row.try_get("password_hash")?))),
+        None => Ok(None),
+    }
+}
+
+pub async fn list(store: &Store) -> StoreResult<Vec<User>> {
+    let rows = sqlx::query(select_users!("ORDER BY username"))
+        .fetch_all(store.pool())
+        .await?;
+    rows.iter().map(user_from_row).collect()
+}
+
+async fn locked_user(w: &mut WriteTx, username: &str) -> StoreResult<User> {
+    let row = sqlx::query(select_users!("WHERE username = $1"))
+        .bind(username)
+        .fetch_optional(w.conn())
+        .await?;
+    row.as_ref()
+        .map(user_from_row)
+        .transpose()?
+        .ok_or_else(|| not_found(username))
+}
+
+pub async fn set_roles(
+    w: &mut WriteTx,
+    actor: &Actor,
+    username: &str,
+    roles: &Roles,
+) -> StoreResult<User> {
+    let mut user = locked_user(w, username).await?;
+    if user.roles == *roles {
+        return Ok(user);
+    }
+    let now = w.now();
+    sqlx::query("UPDATE users SET roles = $1, updated_at = $2 WHERE id = $3")
+        .bind(roles.to_list())
+        .bind(now)
+        .bind(user.id)
+        .execute(w.conn())
+        .await?;
+    w.record(
+        actor,
+        "user.roles_changed",
+        &subject(username),
+        json!({"before": {"roles": user.roles}, "after": {"roles": roles}}),
+    )
+    .await?;
+    user.roles = roles.clone();
+    Ok(user)
+}
+
+pub async fn set_display_name(
+    w: &mut WriteTx,
+    actor: &Actor,
+    username: &str,
+    display_name: &str,
+) -> StoreResult<User> {
+    let mut user = locked_user(w, username).await?;
+    if user.display_name == display_name {
+        return Ok(user);
+    }
+    let now = w.now();
+    sqlx::query("UPDATE users SET display_name = $1, updated_at = $2 WHERE id = $3")
+        .bind(display_name)
+        .bind(now)
+        .bind(user.id)
+        .execute(w.conn())
+        .await?;
+    w.record(
+        actor,
+        "user.display_name_changed",
+        &subject(username),
+        json!({"before": {"display_name": user.display_name}, "after": {"display_name": display_name}}),
+    )
+    .await?;
+    user.display_name = display_name.to_string();
+    Ok(user)
+}
+
+/// Activates or deactivates a person. Deactivation ends their sessions at once; their tokens
+/// stop working because every token check requires an active owner.
+pub async fn set_active(
+    w: &mut WriteTx,
+    actor: &Actor,
+    username: &str,
+    active: bool,
+) -> StoreResult<User> {
+    let mut user = locked_user(w, username).await?;
+    if user.active == active {
+        return Ok(user);
+    }
+    let now = w.now();
+    sqlx::query("UPDATE users SET active = $1, updated_at = $2 WHERE id = $3")
+        .bind(i64::from(active))
+        .bind(now)
+        .bind(user.id)
+        .execute(w.conn())
+        .await?;
+    if !active {
+        super::sessions::end_all_for(w, user.id).await?;
+    }
+    let action = if active {
+        "user.activated"
+    } else {
+        "user.deactivated"
+    };
+    w.record(
+        actor,
+        action,
+        &subject(username),
+        json!({"before": {"active": user.active}, "after": {"active": active}}),
+    )
+    .await?;
+    user.active = active;
+    Ok(user)
+}
+
+/// Replaces a password hash and ends the person's sessions.
+pub async fn set_password(
+    w: &mut WriteTx,
+    actor: &Actor,
+    username: &str,
+    password_hash: &str,
+) -> StoreResult<User> {
+    let user = locked_user(w, username).await?;
+    let now = w.now();
+    sqlx::query("UPDATE users SET password_hash = $1, updated_at = $2 WHERE id = $3")
+        .bind(password_hash)
+        .bind(now)
+        .bind(user.id)
+        .execute(w.conn())
+        .await?;
+    super::sessions::end_all_for(w, user.id).await?;
+    w.record(actor, "user.password_reset", &subject(username), json!({}))
+        .await?;
+    Ok(user)
+}
+
+/// How many active people exist (the first admin is created by `user add`).
+pub async fn count(store: &Store) -> StoreResult<i64> {
+    Ok(sqlx::query_scalar("SELECT COUNT(*) FROM users")
+        .fetch_one(store.pool())
+        .await?)
+}

@@ -1,0 +1,108 @@
+//! `/api/v1/metrics`: the register.
+
+use axum::Json;
+use axum::extract::{FromRequestParts, Path, State};
+use axum::http::request::Parts;
+use axum::http::{HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use serde::Deserialize;
+use serde_json::json;
+
+use crate::domain::MetricKey;
+use crate::ops;
+use crate::ops::metrics::{MetricEdit, NewMetric};
+use crate::store::metrics::{self, MetricFilter};
+use crate::web::AppState;
+use crate::web::auth::ApiCaller;
+use crate::web::error::ApiError;
+use crate::web::extract::{ApiJson, ApiQuery};
+
+/// A metric key taken from the path, validated (400 for a malformed key, in JSON).
+pub struct KeyPath(pub MetricKey);
+
+impl FromRequestParts<AppState> for KeyPath {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let Path(raw) = Path::<String>::from_request_parts(parts, state)
+            .await
+            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        MetricKey::parse(&raw)
+            .map(KeyPath)
+            .map_err(|e| ApiError::bad_request(e.to_string()))
+    }
+}
+
+pub async fn create(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    ApiJson(input): ApiJson<NewMetric>,
+) -> Result<Response, ApiError> {
+    let metric = ops::metrics::create(&state.store, caller.user(), &input).await?;
+    let location = format!("/api/v1/metrics/{}", metric.key);
+    let mut response = (StatusCode::CREATED, Json(metric)).into_response();
+    response.headers_mut().insert(
+        header::LOCATION,
+        HeaderValue::from_str(&location).expect("keys are URL-safe"),
+    );
+    Ok(response)
+}
+
+#[derive(Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
+pub struct ListQuery {
+    q: String,
+    tag: String,
+    owner: String,
+    page: Option<i64>,
+    per_page: Option<i64>,
+}
+
+pub async fn list(
+    State(state): State<AppState>,
+    _caller: ApiCaller,
+    ApiQuery(query): ApiQuery<ListQuery>,
+) -> Result<Json<metrics::MetricPage>, ApiError> {
+    let page = query.page.unwrap_or(1);
+    let per_page = query.per_page.unwrap_or(metrics::PER_PAGE_DEFAULT);
+    if page < 1 {
+        return Err(ApiError::bad_request("page counts from 1"));
+    }
+    if !(1..=metrics::PER_PAGE_MAX).contains(&per_page) {
+        return Err(ApiError::bad_request(format!(
+            "per_page must be from 1 to {}",
+            metrics::PER_PAGE_MAX
+        )));
+    }
+    let filter = MetricFilter {
+        text: query.q,
+        tag: query.tag,
+        owner: query.owner,
+    };
+    Ok(Json(
+        metrics::list(&state.store, &filter, page, per_page).await?,
+    ))
+}
+
+pub async fn show(
+    State(state): State<AppState>,
+    _caller: ApiCaller,
+    KeyPath(key): KeyPath,
+) -> Result<Response, ApiError> {
+    let metric = metrics::get(&state.store, key.as_str()).await?;
+    let mut body = json!(metric);
+    // Threshold versions arrive with the agreement workflow; until then none is in force.
+    body["version_in_force"] = serde_json::Value::Null;
+    Ok(Json(body).into_response())
+}
+
+pub async fn edit(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    KeyPath(key): KeyPath,
+    ApiJson(input): ApiJson<MetricEdit>,
+) -> Result<Json<metrics::Metric>, ApiError> {
+    Ok(Json(
+        ops::metrics::edit(&state.store, caller.user(), key.as_str(), &input).await?,
+    ))
+}

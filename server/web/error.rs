@@ -1,0 +1,166 @@
+//! The web layer's errors and the one place they become HTTP responses: JSON under `/api`,
+//! an HTML page elsewhere. Database and internal errors are logged, never shown.
+
+use axum::Json;
+use axum::http::{HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use serde_json::json;
+
+use crate::domain::metric::Problems;
+use crate::ops::OpError;
+use crate::store::StoreError;
+
+/// An error answer: status, a stable machine code, a message for people, and for validation
+/// errors the problem of each field.
+#[derive(Debug)]
+pub struct ApiError {
+    pub status: StatusCode,
+    pub code: &'static str,
+    pub message: String,
+    pub fields: Option<Problems>,
+    pub retry_after: Option<u64>,
+}
+
+impl ApiError {
+    pub fn new(status: StatusCode, code: &'static str, message: impl Into<String>) -> ApiError {
+        ApiError {
+            status,
+            code,
+            message: message.into(),
+            fields: None,
+            retry_after: None,
+        }
+    }
+
+    pub fn bad_request(message: impl Into<String>) -> ApiError {
+        ApiError::new(StatusCode::BAD_REQUEST, "bad_request", message)
+    }
+
+    pub fn invalid(problems: Problems) -> ApiError {
+        ApiError {
+            fields: Some(problems.clone()),
+            ..ApiError::new(
+                StatusCode::BAD_REQUEST,
+                "invalid",
+                problems
+                    .0
+                    .iter()
+                    .map(|p| p.message.as_str())
+                    .collect::<Vec<_>>()
+                    .join("; "),
+            )
+        }
+    }
+
+    pub fn unauthorized(message: impl Into<String>) -> ApiError {
+        ApiError::new(StatusCode::UNAUTHORIZED, "unauthorized", message)
+    }
+
+    pub fn forbidden(message: impl Into<String>) -> ApiError {
+        ApiError::new(StatusCode::FORBIDDEN, "forbidden", message)
+    }
+
+    pub fn not_found(message: impl Into<String>) -> ApiError {
+        ApiError::new(StatusCode::NOT_FOUND, "not_found", message)
+    }
+
+    pub fn throttled(retry_after: u64) -> ApiError {
+        ApiError {
+            retry_after: Some(retry_after),
+            ..ApiError::new(
+                StatusCode::TOO_MANY_REQUESTS,
+                "throttled",
+                format!("too many failed attempts; try again in {retry_after} seconds"),
+            )
+        }
+    }
+
+    pub fn internal() -> ApiError {
+        ApiError::new(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            "internal",
+            "something went wrong on the server; it has been logged",
+        )
+    }
+}
+
+impl From<StoreError> for ApiError {
+    fn from(e: StoreError) -> Self {
+        match e {
+            StoreError::NotFound(m) => ApiError::not_found(m),
+            StoreError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
+            StoreError::Invalid(p) => ApiError::invalid(p),
+            StoreError::Unavailable(err) => {
+                tracing::error!(error = %err, "database unavailable");
+                ApiError::new(
+                    StatusCode::SERVICE_UNAVAILABLE,
+                    "unavailable",
+                    "the database is not answering; try again shortly",
+                )
+            }
+            StoreError::Database(err) => {
+                tracing::error!(error = %err, "database error");
+                ApiError::internal()
+            }
+            StoreError::Config(m) => {
+                tracing::error!(error = %m, "configuration error");
+                ApiError::internal()
+            }
+        }
+    }
+}
+
+impl From<OpError> for ApiError {
+    fn from(e: OpError) -> Self {
+        match e {
+            OpError::Forbidden(m) => ApiError::forbidden(m),
+            OpError::Invalid(p) => ApiError::invalid(p),
+            OpError::Store(s) => s.into(),
+        }
+    }
+}
+
+impl IntoResponse for ApiError {
+    fn into_response(self) -> Response {
+        let mut body = json!({"error": {"code": self.code, "message": self.message}});
+        if let Some(fields) = &self.fields {
+            body["error"]["fields"] = json!(fields);
+        }
+        let mut response = (self.status, Json(body)).into_response();
+        if let Some(seconds) = self.retry_after {
+            response
+                .headers_mut()
+                .insert(header::RETRY_AFTER, HeaderValue::from(seconds));
+        }
+        response
+    }
+}
+
+/// An error shown to a browser as a page. Built from the same variants; rendered by
+/// `pages::error_page` so it carries the site's layout.
+#[derive(Debug)]
+pub struct PageError(pub ApiError);
+
+impl From<ApiError> for PageError {
+    fn from(e: ApiError) -> Self {
+        PageError(e)
+    }
+}
+
+impl From<StoreError> for PageError {
+    fn from(e: StoreError) -> Self {
+        PageError(e.into())
+    }
+}
+
+impl From<OpError> for PageError {
+    fn from(e: OpError) -> Self {
+        PageError(e.into())
+    }
+}
+
+impl IntoResponse for PageError {
+    fn into_response(self) -> Response {
+        super::pages::error_page(&self.0)
+    }
+}

@@ -1,0 +1,143 @@
+//! Request extractors whose rejections are this API's JSON errors, never a framework's plain
+//! text.
+
+use std::net::SocketAddr;
+
+use axum::body::Bytes;
+use axum::extract::rejection::BytesRejection;
+use axum::extract::{ConnectInfo, FromRequest, FromRequestParts, Request};
+use axum::http::request::Parts;
+use axum::http::{StatusCode, header};
+use serde::de::DeserializeOwned;
+
+use super::AppState;
+use super::error::ApiError;
+
+/// A JSON body: `application/json` (415 otherwise), within the body limit (413), and a
+/// well-formed value of `T` (400 naming the field and what was wrong).
+pub struct ApiJson<T>(pub T);
+
+fn is_json(content_type: &str) -> bool {
+    let mime = content_type
+        .split(';')
+        .next()
+        .unwrap_or("")
+        .trim()
+        .to_ascii_lowercase();
+    mime == "application/json" || (mime.starts_with("application/") && mime.ends_with("+json"))
+}
+
+/// Parses JSON into `T`, naming the path of the offending field in the error.
+pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+    if bytes.iter().all(u8::is_ascii_whitespace) {
+        return Err(ApiError::new(
+            StatusCode::BAD_REQUEST,
+            "bad_json",
+            "the request body is empty; send a JSON object",
+        ));
+    }
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    let value: T = serde_path_to_error::deserialize(&mut de).map_err(|e| {
+        let path = e.path().to_string();
+        let inner = e.into_inner();
+        let message = if path == "." || path.is_empty() {
+            format!("malformed JSON: {inner}")
+        } else {
+            format!("{path}: {inner}")
+        };
+        ApiError::new(StatusCode::BAD_REQUEST, "bad_json", message)
+    })?;
+    // Anything after the value is malformed too.
+    de.end().map_err(|e| {
+        ApiError::new(
+            StatusCode::BAD_REQUEST,
+            "bad_json",
+            format!("malformed JSON: {e}"),
+        )
+    })?;
+    Ok(value)
+}
+
+/// Turns a body-reading failure into 413 (too large) or 400.
+pub fn body_error(rejection: BytesRejection) -> ApiError {
+    if rejection.status() == StatusCode::PAYLOAD_TOO_LARGE {
+        ApiError::new(
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "too_large",
+            "the request body is larger than this endpoint accepts",
+        )
+    } else {
+        ApiError::bad_request(format!("the request body could not be read: {rejection}"))
+    }
+}
+
+impl<T: DeserializeOwned> FromRequest<AppState> for ApiJson<T> {
+    type Rejection = ApiError;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Self::Rejection> {
+        let content_type = req
+            .headers()
+            .get(header::CONTENT_TYPE)
+            .and_then(|v| v.to_str().ok())
+            .unwrap_or("");
+        if !is_json(content_type) {
+            return Err(ApiError::new(
+                StatusCode::UNSUPPORTED_MEDIA_TYPE,
+                "unsupported_media_type",
+                "send the body as application/json",
+            ));
+        }
+        let bytes = Bytes::from_request(req, state).await.map_err(body_error)?;
+        parse_json(&bytes).map(ApiJson)
+    }
+}
+
+/// Query parameters as `T`; a malformed query answers 400 in JSON.
+pub struct ApiQuery<T>(pub T);
+
+impl<T: DeserializeOwned> FromRequestParts<AppState> for ApiQuery<T> {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, _: &AppState) -> Result<Self, Self::Rejection> {
+        let query = parts.uri.query().unwrap_or("");
+        serde_urlencoded::from_str(query)
+            .map(ApiQuery)
+            .map_err(|e| ApiError::bad_request(format!("bad query parameter: {e}")))
+    }
+}
+
+/// The client's address: the peer of the connection, or, behind a proxy the operator named,
+/// the last address in the header it sets.
+#[derive(Clone, Debug)]
+pub struct ClientAddr(pub String);
+
+impl FromRequestParts<AppState> for ClientAddr {
+    type Rejection = std::convert::Infallible;
+
+    async fn from_request_parts(
+        parts: &mut Parts,
+        state: &AppState,
+    ) -> Result<Self, Self::Rejection> {
+        Ok(ClientAddr(client_addr(parts, state)))
+    }
+}
+
+pub fn client_addr(parts: &Parts, state: &AppState) -> String {
+    if let Some(name) = &state.config.forwarded_header {
+        if let Some(value) = parts.headers.get(name).and_then(|v| v.to_str().ok()) {
+            if let Some(last) = value
+                .rsplit(',')
+                .next()
+                .map(str::trim)
+                .filter(|s| !s.is_empty())
+            {
+                return last.to_string();
+            }
+        }
+    }
+    parts
+        .extensions
+        .get::<ConnectInfo<SocketAddr>>()
+        .map(|c| c.0.ip().to_string())
+        .unwrap_or_else(|| "unknown".to_string())
+}

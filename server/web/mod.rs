@@ -1,0 +1,217 @@
+//! HTTP: the JSON API, the pages, and the middleware every request passes (security headers,
+//! body limits, who is calling and the CSRF checks).
+
+pub mod api;
+pub mod auth;
+pub mod error;
+pub mod extract;
+pub mod pages;
+pub mod templates;
+
+use std::future::Future;
+use std::net::SocketAddr;
+use std::sync::Arc;
+
+use axum::extract::{DefaultBodyLimit, Request, State};
+use axum::http::{HeaderName, HeaderValue, StatusCode, header};
+use axum::middleware::{self, Next};
+use axum::response::{IntoResponse, Redirect, Response};
+use axum::routing::{get, post};
+use axum::{Json, Router};
+use serde_json::json;
+use tokio::net::TcpListener;
+
+use crate::store::Store;
+use error::{ApiError, PageError};
+
+/// Settings of the web layer.
+#[derive(Clone, Debug)]
+pub struct WebConfig {
+    /// Mark cookies Secure and send HSTS: the site is reached over https (through a proxy
+    /// that terminates TLS).
+    pub secure_cookies: bool,
+    /// The header a trusted reverse proxy sets to the client's address, if any.
+    pub forwarded_header: Option<HeaderName>,
+    /// Largest JSON body the API accepts.
+    pub body_limit: usize,
+}
+
+impl Default for WebConfig {
+    fn default() -> Self {
+        WebConfig {
+            secure_cookies: false,
+            forwarded_header: None,
+            body_limit: 2 * 1024 * 1024,
+        }
+    }
+}
+
+/// What every handler can reach.
+#[derive(Clone, Debug)]
+pub struct AppState {
+    pub store: Store,
+    pub config: Arc<WebConfig>,
+}
+
+impl AppState {
+    pub fn new(store: Store, config: WebConfig) -> AppState {
+        AppState {
+            store,
+            config: Arc::new(config),
+        }
+    }
+}
+
+/// Headers of the OWASP HTTP Headers Cheat Sheet on every response: a CSP that allows no
+/// script at all, no framing, no sniffing, no referrer, and no caching of signed-in pages
+/// unless a handler chose otherwise.
+async fn security_headers(State(state): State<AppState>, req: Request, next: Next) -> Response {
+    let mut response = next.run(req).await;
+    let h = response.headers_mut();
+    let set = |h: &mut axum::http::HeaderMap, name: HeaderName, value: &'static str| {
+        h.entry(name).or_insert(HeaderValue::from_static(value));
+    };
+    set(
+        h,
+        header::CONTENT_SECURITY_POLICY,
+        "default-src 'none'; style-src 'self'; img-src 'self' data:; form-action 'self'; \
+         frame-ancestors 'none'; base-uri 'none'",
+    );
+    set(h, header::X_FRAME_OPTIONS, "DENY");
+    set(h, header::X_CONTENT_TYPE_OPTIONS, "nosniff");
+    set(h, header::REFERRER_POLICY, "no-referrer");
+    set(
+        h,
+        HeaderName::from_static("cross-origin-opener-policy"),
+        "same-origin",
+    );
+    set(
+        h,
+        HeaderName::from_static("cross-origin-resource-policy"),
+        "same-origin",
+    );
+    set(
+        h,
+        HeaderName::from_static("permissions-policy"),
+        "camera=(), microphone=(), geolocation=()",
+    );
+    set(h, header::CACHE_CONTROL, "no-store");
+    if state.config.secure_cookies {
+        set(
+            h,
+            header::STRICT_TRANSPORT_SECURITY,
+            "max-age=31536000; includeSubDomains",
+        );
+    }
+    response
+}
+
+/// `GET /healthz`: 200 when the database answers, 503 when it does not.
+async fn healthz(State(state): State<AppState>) -> Response {
+    if state.store.is_healthy().await {
+        Json(json!({"status": "ok", "database": state.store.backend().name()})).into_response()
+    } else {
+        (
+            StatusCode::SERVICE_UNAVAILABLE,
+            Json(json!({"error": {"code": "unavailable", "message": "the database is not answering"}})),
+        )
+            .into_response()
+    }
+}
+
+async fn style_css() -> Response {
+    (
+        [
+            (header::CONTENT_TYPE, "text/css; charset=utf-8"),
+            (header::CACHE_CONTROL, "public, max-age=3600"),
+        ],
+        templates::STYLE_CSS,
+    )
+        .into_response()
+}
+
+async fn home() -> Redirect {
+    Redirect::to("/metrics")
+}
+
+async fn page_not_found() -> PageError {
+    PageError(ApiError::not_found("there is no page at this address"))
+}
+
+fn api_routes(config: &WebConfig) -> Router<AppState> {
+    use api::metrics as m;
+    Router::new()
+        .route("/v1/me", get(api::me))
+        .route("/v1/metrics", get(m::list).post(m::create))
+        .route("/v1/metrics/{key}", get(m::show).patch(m::edit))
+        .fallback(api::not_found)
+        .method_not_allowed_fallback(api::method_not_allowed)
+        .layer(DefaultBodyLimit::max(config.body_limit))
+}
+
+fn page_routes() -> Router<AppState> {
+    use pages::{admin, metrics, signin};
+    Router::new()
+        .route("/", get(home))
+        .route("/signin", get(signin::show).post(signin::submit))
+        .route("/signout", post(signin::signout))
+        .route("/metrics", get(metrics::list))
+        .route("/metrics/new", get(metrics::new_form).post(metrics::create))
+        .route("/metrics/{key}", get(metrics::detail))
+        .route(
+            "/metrics/{key}/edit",
+            get(metrics::edit_form).post(metrics::edit),
+        )
+        .route("/admin/users", get(admin::users_list))
+        .route(
+            "/admin/users/new",
+            get(admin::user_new_form).post(admin::user_create),
+        )
+        .route(
+            "/admin/users/{username}",
+            get(admin::user_detail).post(admin::user_update),
+        )
+        .route("/admin/users/{username}/active", post(admin::user_active))
+        .route(
+            "/admin/users/{username}/password",
+            post(admin::user_password),
+        )
+        .route(
+            "/admin/tokens",
+            get(admin::tokens_list).post(admin::token_issue),
+        )
+        .route("/admin/tokens/{id}/revoke", post(admin::token_revoke))
+        .layer(DefaultBodyLimit::max(auth::FORM_LIMIT))
+}
+
+/// The whole application.
+pub fn app(state: AppState) -> Router {
+    templates::load();
+    Router::new()
+        .route("/healthz", get(healthz))
+        .route("/static/style.css", get(style_css))
+        .merge(page_routes())
+        .nest("/api", api_routes(&state.config))
+        .fallback(page_not_found)
+        .layer(middleware::from_fn_with_state(state.clone(), auth::resolve))
+        .layer(middleware::from_fn_with_state(
+            state.clone(),
+            security_headers,
+        ))
+        .with_state(state)
+}
+
+/// Serves `app(state)` on `listener` until `shutdown` completes, then finishes the requests
+/// in flight.
+pub async fn serve(
+    listener: TcpListener,
+    state: AppState,
+    shutdown: impl Future<Output = ()> + Send + 'static,
+) -> std::io::Result<()> {
+    axum::serve(
+        listener,
+        app(state).into_make_service_with_connect_info::<SocketAddr>(),
+    )
+    .with_graceful_shutdown(shutdown)
+    .await
+}

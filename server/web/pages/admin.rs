@@ -1,0 +1,420 @@
+//! Admin pages: people (add, roles, display name, activation, password reset) and API tokens
+//! (issue, list, revoke).
+
+use axum::extract::{Path, State};
+use axum::http::StatusCode;
+use axum::response::{IntoResponse, Redirect, Response};
+use serde_json::json;
+
+use super::{FormFields, PageQuery, base_context, field_errors, page, render};
+use crate::domain::metric::Problems;
+use crate::domain::{Role, Timestamp};
+use crate::ops::OpError;
+use crate::ops::users::{self as user_ops, By, NewUser};
+use crate::store::sessions::Session;
+use crate::store::tokens::Scope;
+use crate::store::{StoreError, tokens, users};
+use crate::web::AppState;
+use crate::web::auth::PageSession;
+use crate::web::error::{ApiError, PageError};
+
+fn require_admin(session: &Session) -> Result<(), PageError> {
+    if session.user.roles.has(Role::Admin) {
+        Ok(())
+    } else {
+        Err(PageError(ApiError::forbidden(
+            "only an admin may manage people and tokens",
+        )))
+    }
+}
+
+fn all_roles() -> Vec<&'static str> {
+    Role::ALL.iter().map(|r| r.as_str()).collect()
+}
+
+pub async fn users_list(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let people = users::list(&state.store).await?;
+    let mut ctx = base_context(Some(&session), "People", "people");
+    ctx.insert("people", &people);
+    Ok(page("admin_users.html", &ctx))
+}
+
+fn new_user_form(
+    session: &Session,
+    form: Option<&FormFields>,
+    problems: &Problems,
+    status: StatusCode,
+) -> Response {
+    let get = |name: &str| form.map(|f| f.get(name).to_string()).unwrap_or_default();
+    let checked: Vec<String> = form
+        .map(|f| f.all("role").into_iter().map(str::to_string).collect())
+        .unwrap_or_default();
+    let mut ctx = base_context(Some(session), "Add a person", "people");
+    ctx.insert(
+        "values",
+        &json!({"username": get("username"), "display_name": get("display_name")}),
+    );
+    ctx.insert("roles", &all_roles());
+    ctx.insert("checked", &checked);
+    ctx.insert("errors", &field_errors(problems));
+    ctx.insert("problems", &problems.0);
+    render(status, "admin_user_new.html", &ctx)
+}
+
+pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    Ok(new_user_form(
+        &session,
+        None,
+        &Problems::default(),
+        StatusCode::OK,
+    ))
+}
+
+/// Problems a form can show beside its fields; anything else becomes an error page.
+fn form_problems(err: OpError, conflict_field: &str) -> Result<(Problems, StatusCode), PageError> {
+    match err {
+        OpError::Invalid(p) | OpError::Store(StoreError::Invalid(p)) => {
+            Ok((p, StatusCode::BAD_REQUEST))
+        }
+        OpError::Store(StoreError::Conflict(m)) => {
+            let mut p = Problems::default();
+            p.add(conflict_field, m);
+            Ok((p, StatusCode::CONFLICT))
+        }
+        other => Err(other.into()),
+    }
+}
+
+pub async fn user_create(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let input = NewUser {
+        username: form.get("username").to_string(),
+        display_name: form.get("display_name").to_string(),
+        roles: form.all("role").join(","),
+        password: form.get("password").to_string(),
+    };
+    match user_ops::add(&state.store, By::Person(&session.user), &input).await {
+        Ok(u) => {
+            Ok(Redirect::to(&format!("/admin/users/{}?saved=added", u.username)).into_response())
+        }
+        Err(e) => {
+            let (p, status) = form_problems(e, "username")?;
+            Ok(new_user_form(&session, Some(&form), &p, status))
+        }
+    }
+}
+
+fn user_page(
+    session: &Session,
+    person: &users::User,
+    person_tokens: &[tokens::TokenInfo],
+    notice: Option<&str>,
+    problems: &Problems,
+    status: StatusCode,
+) -> Response {
+    let mut ctx = base_context(Some(session), &person.display_name, "people");
+    ctx.insert("person", person);
+    ctx.insert(
+        "person_roles",
+        &person.roles.iter().map(Role::as_str).collect::<Vec<_>>(),
+    );
+    ctx.insert("roles", &all_roles());
+    let now = Timestamp::now();
+    ctx.insert(
+        "tokens",
+        &person_tokens
+            .iter()
+            .map(|t| json!({"info": t, "usable": t.is_usable(now)}))
+            .collect::<Vec<_>>(),
+    );
+    ctx.insert("notice", &notice);
+    ctx.insert("errors", &field_errors(problems));
+    ctx.insert("is_me", &(session.user.username == person.username));
+    render(status, "admin_user.html", &ctx)
+}
+
+#[derive(serde::Deserialize, Default)]
+#[serde(default)]
+pub struct SavedQuery {
+    saved: String,
+}
+
+pub async fn user_detail(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(username): Path<String>,
+    PageQuery(query): PageQuery<SavedQuery>,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let person = users::get(&state.store, &username).await?;
+    let person_tokens = tokens::list(&state.store, Some(&username)).await?;
+    let notice = match query.saved.as_str() {
+        "added" => Some("The person was added. They can sign in now."),
+        "details" => Some("Display name and roles saved."),
+        "activated" => Some("The person can sign in again."),
+        "deactivated" => Some(
+            "The person was deactivated: their sessions ended and their tokens stopped working.",
+        ),
+        "password" => Some("The password was reset and their sessions ended."),
+        _ => None,
+    };
+    Ok(user_page(
+        &session,
+        &person,
+        &person_tokens,
+        notice,
+        &Problems::default(),
+        StatusCode::OK,
+    ))
+}
+
+async fn reshow_user(
+    state: &AppState,
+    session: &Session,
+    username: &str,
+    err: OpError,
+) -> Result<Response, PageError> {
+    let (p, status) = form_problems(err, "roles")?;
+    let person = users::get(&state.store, username).await?;
+    let person_tokens = tokens::list(&state.store, Some(username)).await?;
+    Ok(user_page(
+        session,
+        &person,
+        &person_tokens,
+        None,
+        &p,
+        status,
+    ))
+}
+
+pub async fn user_update(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(username): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let by = By::Person(&session.user);
+    let result = async {
+        user_ops::set_display_name(&state.store, by, &username, form.get("display_name")).await?;
+        user_ops::set_roles(&state.store, by, &username, &form.all("role").join(",")).await
+    }
+    .await;
+    match result {
+        Ok(_) => {
+            Ok(Redirect::to(&format!("/admin/users/{username}?saved=details")).into_response())
+        }
+        Err(e) => reshow_user(&state, &session, &username, e).await,
+    }
+}
+
+pub async fn user_active(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(username): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let active = form.get("active") == "1";
+    user_ops::set_active(&state.store, By::Person(&session.user), &username, active).await?;
+    let saved = if active { "activated" } else { "deactivated" };
+    Ok(Redirect::to(&format!("/admin/users/{username}?saved={saved}")).into_response())
+}
+
+pub async fn user_password(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(username): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let result = if form.get("password") != form.get("password_again") {
+        let mut p = Problems::default();
+        p.add("password", "the two passwords differ");
+        Err(OpError::Invalid(p))
+    } else {
+        user_ops::reset_password(
+            &state.store,
+            By::Person(&session.user),
+            &username,
+            form.get("password"),
+        )
+        .await
+    };
+    match result {
+        Ok(_) => {
+            Ok(Redirect::to(&format!("/admin/users/{username}?saved=password")).into_response())
+        }
+        Err(e) => reshow_user(&state, &session, &username, e).await,
+    }
+}
+
+fn tokens_page(
+    session: &Session,
+    all: &[tokens::TokenInfo],
+    people: &[users::User],
+    issued: Option<(&str, &tokens::TokenInfo)>,
+    form: Option<&FormFields>,
+    problems: &Problems,
+    status: StatusCode,
+) -> Response {
+    let now = Timestamp::now();
+    let mut ctx = base_context(Some(session), "API tokens", "tokens");
+    ctx.insert(
+        "tokens",
+        &all.iter()
+            .map(|t| json!({"info": t, "usable": t.is_usable(now)}))
+            .collect::<Vec<_>>(),
+    );
+    ctx.insert(
+        "people",
+        &people
+            .iter()
+            .filter(|p| p.active)
+            .map(|p| json!({"username": p.username, "display_name": p.display_name}))
+            .collect::<Vec<_>>(),
+    );
+    ctx.insert(
+        "issued",
+        &issued.map(|(secret, info)| json!({"secret": secret, "info": info})),
+    );
+    let get = |name: &str| form.map(|f| f.get(name).to_string()).unwrap_or_default();
+    ctx.insert(
+        "values",
+        &json!({"username": get("username"), "scope": get("scope"), "label": get("label"), "expires_in_days": get("expires_in_days")}),
+    );
+    ctx.insert("errors", &field_errors(problems));
+    render(status, "admin_tokens.html", &ctx)
+}
+
+pub async fn tokens_list(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let all = tokens::list(&state.store, None).await?;
+    let people = users::list(&state.store).await?;
+    Ok(tokens_page(
+        &session,
+        &all,
+        &people,
+        None,
+        None,
+        &Problems::default(),
+        StatusCode::OK,
+    ))
+}
+
+/// Reads "expires in N days": blank means never.
+fn expiry_field(text: &str, problems: &mut Problems) -> Option<Timestamp> {
+    let text = text.trim();
+    if text.is_empty() {
+        return None;
+    }
+    match text.parse::<i64>() {
+        Ok(days) if (1..=3650).contains(&days) => {
+            Some(Timestamp::now().plus_seconds(days * 86_400))
+        }
+        _ => {
+            problems.add(
+                "expires_in_days",
+                "expires_in_days must be a whole number of days from 1 to 3650, or blank for no expiry",
+            );
+            None
+        }
+    }
+}
+
+pub async fn token_issue(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let mut problems = Problems::default();
+    let scope = match Scope::parse(form.get("scope")) {
+        Ok(s) => Some(s),
+        Err(m) => {
+            problems.add("scope", m);
+            None
+        }
+    };
+    let expires_at = expiry_field(form.get("expires_in_days"), &mut problems);
+    let result = match scope {
+        Some(scope) if problems.is_empty() => user_ops::issue_token(
+            &state.store,
+            By::Person(&session.user),
+            form.get("username"),
+            scope,
+            form.get("label"),
+            expires_at,
+        )
+        .await
+        .map_err(|e| match e {
+            OpError::Store(StoreError::NotFound(m)) => {
+                let mut p = Problems::default();
+                p.add("username", m);
+                OpError::Invalid(p)
+            }
+            other => other,
+        }),
+        _ => Err(OpError::Invalid(problems)),
+    };
+    let people = users::list(&state.store).await?;
+    match result {
+        Ok((secret, info)) => {
+            let listed = tokens::list(&state.store, None).await?;
+            Ok(tokens_page(
+                &session,
+                &listed,
+                &people,
+                Some((&secret, &info)),
+                None,
+                &Problems::default(),
+                StatusCode::CREATED,
+            ))
+        }
+        Err(e) => {
+            let (p, status) = form_problems(e, "label")?;
+            let listed = tokens::list(&state.store, None).await?;
+            Ok(tokens_page(
+                &session,
+                &listed,
+                &people,
+                None,
+                Some(&form),
+                &p,
+                status,
+            ))
+        }
+    }
+}
+
+pub async fn token_revoke(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    require_admin(&session)?;
+    let id: i64 = id
+        .parse()
+        .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
+    user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
+    let back = form.get("back");
+    let back = if back.starts_with("/admin/") {
+        back
+    } else {
+        "/admin/tokens"
+    };
+    Ok(Redirect::to(back).into_response())
+}

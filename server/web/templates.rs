@@ -1,0 +1,67 @@
+//! The page templates, compiled into the binary and parsed once.
+
+use std::sync::LazyLock;
+
+use tera::{Context, Kwargs, State, Tera};
+
+/// Every template, by name. They live in `templates/` at the top of the repository.
+const TEMPLATES: &[(&str, &str)] = &[
+    ("base.html", include_str!("../../templates/base.html")),
+    ("error.html", include_str!("../../templates/error.html")),
+    ("signin.html", include_str!("../../templates/signin.html")),
+    (
+        "metrics_list.html",
+        include_str!("../../templates/metrics_list.html"),
+    ),
+    (
+        "metric_detail.html",
+        include_str!("../../templates/metric_detail.html"),
+    ),
+    (
+        "metric_form.html",
+        include_str!("../../templates/metric_form.html"),
+    ),
+    (
+        "admin_users.html",
+        include_str!("../../templates/admin_users.html"),
+    ),
+    (
+        "admin_user.html",
+        include_str!("../../templates/admin_user.html"),
+    ),
+    (
+        "admin_user_new.html",
+        include_str!("../../templates/admin_user_new.html"),
+    ),
+    (
+        "admin_tokens.html",
+        include_str!("../../templates/admin_tokens.html"),
+    ),
+];
+
+/// The style sheet, served at `/static/style.css`.
+pub const STYLE_CSS: &str = include_str!("../../templates/style.css");
+
+static TERA: LazyLock<Tera> = LazyLock::new(|| {
+    let mut tera = Tera::new();
+    tera.register_filter("urlencode", |s: &str, _: Kwargs, _: &State| {
+        serde_urlencoded::to_string([("", s)])
+            .map(|e| e.trim_start_matches('=').to_string())
+            .unwrap_or_default()
+    });
+    tera.add_raw_templates(TEMPLATES.iter().copied())
+        .expect("the page templates parse");
+    tera
+});
+
+/// Parses the templates now, so a broken one stops the server at start-up, not at a request.
+pub fn load() {
+    LazyLock::force(&TERA);
+}
+
+/// Renders a template; a failure here is a bug in a template and is logged.
+pub fn render(name: &str, context: &Context) -> Result<String, tera::Error> {
+    TERA.render(name, context).inspect_err(|e| {
+        tracing::error!(template = name, error = %e, "template failed to render");
+    })
+}
