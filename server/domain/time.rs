@@ -41,14 +41,14 @@ impl Timestamp {
     /// or a bare date, which means 00:00:00Z.
     pub fn parse(text: &str) -> Result<Timestamp, TimeParseError> {
         let trimmed = text.trim();
-        if let Ok(date) = NaiveDate::parse_from_str(trimmed, "%Y-%m-%d") {
-            if trimmed.len() == 10 {
-                let t = date
-                    .and_hms_opt(0, 0, 0)
-                    .expect("midnight exists")
-                    .and_utc();
-                return Ok(Timestamp(t));
-            }
+        if let Ok(date) = NaiveDate::parse_from_str(trimmed, "%Y-%m-%d")
+            && trimmed.len() == 10
+        {
+            let t = date
+                .and_hms_opt(0, 0, 0)
+                .expect("midnight exists")
+                .and_utc();
+            return Ok(Timestamp(t));
         }
         let mut candidate = trimmed.to_string();
         // "2026-03-01T09:30:00 01:00": the '+' of the offset became a space in a query string.

@@ -114,13 +114,14 @@ pub async fn set_roles(store: &Store, by: By<'_>, username: &str, roles: &str) -
     if roles.is_empty() {
         return Err(single("roles", "give at least one role"));
     }
-    if let By::Person(me) = by {
-        if me.username == username && !roles.has(Role::Admin) {
-            return Err(single(
-                "roles",
-                "you cannot remove your own admin role; ask another admin",
-            ));
-        }
+    if let By::Person(me) = by
+        && me.username == username
+        && !roles.has(Role::Admin)
+    {
+        return Err(single(
+            "roles",
+            "you cannot remove your own admin role; ask another admin",
+        ));
     }
     let mut w = store.begin_write().await?;
     let user = users::set_roles(&mut w, &by.actor(), username, &roles).await?;
@@ -144,12 +145,13 @@ pub async fn set_display_name(
 
 pub async fn set_active(store: &Store, by: By<'_>, username: &str, active: bool) -> OpResult<User> {
     by.require_admin()?;
-    if let By::Person(me) = by {
-        if me.username == username && !active {
-            return Err(OpError::Forbidden(
-                "you cannot deactivate yourself; ask another admin".into(),
-            ));
-        }
+    if let By::Person(me) = by
+        && me.username == username
+        && !active
+    {
+        return Err(OpError::Forbidden(
+            "you cannot deactivate yourself; ask another admin".into(),
+        ));
     }
     let mut w = store.begin_write().await?;
     let user = users::set_active(&mut w, &by.actor(), username, active).await?;

@@ -474,10 +474,10 @@ pub async fn update(
     .bind(new.id)
     .execute(w.conn())
     .await?;
-    if let Some(resolved) = owners {
-        if after.contains_key("owners") {
-            write_owners(w, new.id, &resolved).await?;
-        }
+    if let Some(resolved) = owners
+        && after.contains_key("owners")
+    {
+        write_owners(w, new.id, &resolved).await?;
     }
     if after.contains_key("tags") {
         write_tags(w, new.id, &new.tags).await?;

@@ -79,6 +79,9 @@ pub fn cookie_header(state: &AppState, name: &str, value: &str, remove: bool) ->
     HeaderValue::from_str(&c.to_string()).expect("cookie values are ASCII")
 }
 
+/// POST endpoints that compute an answer and change nothing: read-scope tokens may call them.
+const READ_ONLY_POSTS: &[&str] = &["/api/v1/classify"];
+
 fn is_safe(method: &Method) -> bool {
     matches!(*method, Method::GET | Method::HEAD | Method::OPTIONS)
 }
@@ -140,7 +143,9 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
         match &credential {
             Some(Credential::Token {
                 scope: Scope::Read, ..
-            }) => {
+            }) if !(req.method() == Method::POST
+                && READ_ONLY_POSTS.contains(&req.uri().path())) =>
+            {
                 return Err(ApiError::forbidden(
                     "this token has read scope; changes need a write-scope token",
                 )

@@ -40,7 +40,11 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     let value: T = serde_path_to_error::deserialize(&mut de).map_err(|e| {
         let path = e.path().to_string();
         let inner = e.into_inner();
-        let message = if path == "." || path.is_empty() {
+        let syntax = matches!(
+            inner.classify(),
+            serde_json::error::Category::Syntax | serde_json::error::Category::Eof
+        );
+        let message = if syntax || path == "." || path.is_empty() {
             format!("malformed JSON: {inner}")
         } else {
             format!("{path}: {inner}")
@@ -123,17 +127,17 @@ impl FromRequestParts<AppState> for ClientAddr {
 }
 
 pub fn client_addr(parts: &Parts, state: &AppState) -> String {
-    if let Some(name) = &state.config.forwarded_header {
-        if let Some(value) = parts.headers.get(name).and_then(|v| v.to_str().ok()) {
-            if let Some(last) = value
-                .rsplit(',')
-                .next()
-                .map(str::trim)
-                .filter(|s| !s.is_empty())
-            {
-                return last.to_string();
-            }
-        }
+    let forwarded = state
+        .config
+        .forwarded_header
+        .as_ref()
+        .and_then(|name| parts.headers.get(name))
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.rsplit(',').next())
+        .map(str::trim)
+        .filter(|s| !s.is_empty());
+    if let Some(last) = forwarded {
+        return last.to_string();
     }
     parts
         .extensions

@@ -142,6 +142,7 @@ fn api_routes(config: &WebConfig) -> Router<AppState> {
     use api::metrics as m;
     Router::new()
         .route("/v1/me", get(api::me))
+        .route("/v1/classify", post(api::classify::classify))
         .route("/v1/metrics", get(m::list).post(m::create))
         .route("/v1/metrics/{key}", get(m::show).patch(m::edit))
         .fallback(api::not_found)

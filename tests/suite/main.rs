@@ -1,1 +1,13 @@
+//! The whole test suite, in one binary to keep build times down. Tests that need a database
+//! run on SQLite always and on PostgreSQL when `CUTPOINTS_TEST_POSTGRES_URL` is set.
 
+mod helpers;
+
+mod accounts;
+mod bad_input;
+mod cli;
+mod engine_properties;
+mod engine_rules;
+mod pages;
+mod platform;
+mod register_api;

@@ -1,0 +1,65 @@
+//! `POST /api/v1/classify`: the engine over HTTP, so anyone signed in can try a cut set on
+//! some values before proposing it. Nothing is stored.
+
+use std::collections::BTreeMap;
+
+use axum::Json;
+use serde::{Deserialize, Serialize};
+
+use crate::domain::metric::Problems;
+use crate::domain::thresholds::{CutSet, Direction, Shades};
+use crate::engine::{Classification, classify_all};
+use crate::web::auth::ApiCaller;
+use crate::web::error::ApiError;
+use crate::web::extract::ApiJson;
+
+/// Most values one request may classify.
+pub const MAX_VALUES: usize = 10_000;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ClassifyRequest {
+    direction: String,
+    cuts: BTreeMap<String, f64>,
+    #[serde(default)]
+    shades: Option<i64>,
+    values: Vec<Option<f64>>,
+}
+
+#[derive(Serialize)]
+pub struct ClassifyResponse {
+    results: Vec<Classification>,
+}
+
+pub async fn classify(
+    _caller: ApiCaller,
+    ApiJson(req): ApiJson<ClassifyRequest>,
+) -> Result<Json<ClassifyResponse>, ApiError> {
+    let mut p = Problems::default();
+    let direction: Option<Direction> = p.check("direction", req.direction.parse());
+    let cuts = direction.and_then(|d| {
+        p.check(
+            "cuts",
+            CutSet::from_named(d, req.cuts.iter().map(|(k, v)| (k.as_str(), *v))),
+        )
+    });
+    let shades = p.check(
+        "shades",
+        req.shades.map_or(Ok(Shades::default()), Shades::new),
+    );
+    if req.values.len() > MAX_VALUES {
+        p.add(
+            "values",
+            format!(
+                "at most {MAX_VALUES} values per request, got {}",
+                req.values.len()
+            ),
+        );
+    }
+    match (cuts, shades) {
+        (Some(cuts), Some(shades)) if p.is_empty() => Ok(Json(ClassifyResponse {
+            results: classify_all(&cuts, shades, &req.values),
+        })),
+        _ => Err(ApiError::invalid(p)),
+    }
+}

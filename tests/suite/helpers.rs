@@ -1,0 +1,326 @@
+//! The test harness: the real server on port 0 over a fresh database per test, on SQLite
+//! and, when `CUTPOINTS_TEST_POSTGRES_URL` names a server, on PostgreSQL.
+
+use std::sync::LazyLock;
+
+use cutpoints::domain::{Roles, Username};
+use cutpoints::ops::users::{By, add_with_hash};
+use cutpoints::store::tokens::Scope;
+use cutpoints::store::users::User;
+use cutpoints::store::{Store, events};
+use cutpoints::{AppState, WebConfig};
+use serde_json::Value;
+use tokio::net::TcpListener;
+
+/// Every test person's password.
+pub const PASSWORD: &str = "correct horse battery staple";
+
+/// Hashed once per test run: argon2id at the OWASP settings costs tens of milliseconds.
+static PASSWORD_HASH: LazyLock<String> =
+    LazyLock::new(|| cutpoints::auth::password::hash(PASSWORD));
+
+pub const POSTGRES_ENV: &str = "CUTPOINTS_TEST_POSTGRES_URL";
+
+/// True under CI, where a missing prerequisite is a failure, not a skip.
+pub fn in_ci() -> bool {
+    std::env::var("CI").is_ok_and(|v| v == "true" || v == "1")
+}
+
+/// Reports a missing prerequisite: a skip on a developer's machine, a failure under CI.
+pub fn missing_prerequisite(what: &str) {
+    if in_ci() {
+        panic!("CI=true but {what} is missing: CI must not pass by skipping");
+    }
+    eprintln!("SKIPPED: {what} is missing (this would fail under CI=true)");
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Backend {
+    Sqlite,
+    Postgres,
+}
+
+pub struct TestApp {
+    pub base: String,
+    pub store: Store,
+    /// The database URL, for running the command line against the same database.
+    pub store_url: String,
+    pub backend: Backend,
+    /// A client without cookies, for API calls.
+    pub http: reqwest::Client,
+    shutdown: Option<tokio::sync::oneshot::Sender<()>>,
+    _folder: Option<tempfile::TempDir>,
+    postgres: Option<(String, String)>,
+}
+
+fn random_suffix() -> String {
+    let mut bytes = [0u8; 8];
+    getrandom::fill(&mut bytes).expect("randomness");
+    hex::encode(bytes)
+}
+
+impl TestApp {
+    /// The app on the given backend, or `None` (after reporting it) when PostgreSQL is not
+    /// configured.
+    pub async fn spawn(backend: Backend) -> Option<TestApp> {
+        Self::spawn_with(backend, WebConfig::default()).await
+    }
+
+    pub async fn spawn_with(backend: Backend, config: WebConfig) -> Option<TestApp> {
+        let (url, folder, postgres) = match backend {
+            Backend::Sqlite => {
+                let folder = tempfile::tempdir().expect("temp folder");
+                let url = format!("sqlite://{}", folder.path().join("test.db").display());
+                (url, Some(folder), None)
+            }
+            Backend::Postgres => {
+                let Ok(admin_url) = std::env::var(POSTGRES_ENV) else {
+                    missing_prerequisite(&format!("PostgreSQL ({POSTGRES_ENV} is not set)"));
+                    return None;
+                };
+                let name = format!("cutpoints_test_{}", random_suffix());
+                let admin = Store::connect(&admin_url)
+                    .await
+                    .unwrap_or_else(|e| panic!("cannot reach PostgreSQL at {admin_url}: {e}"));
+                sqlx::query(sqlx::AssertSqlSafe(format!("CREATE DATABASE {name}")))
+                    .execute(admin.pool())
+                    .await
+                    .expect("create test database");
+                admin.pool().close().await;
+                let url = replace_database(&admin_url, &name);
+                (url, None, Some((admin_url, name)))
+            }
+        };
+        let store = Store::open(&url).await.expect("open and migrate");
+        let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
+        let base = format!("http://{}", listener.local_addr().unwrap());
+        let (tx, rx) = tokio::sync::oneshot::channel::<()>();
+        let state = AppState::new(store.clone(), config);
+        tokio::spawn(async move {
+            cutpoints::serve(listener, state, async {
+                let _ = rx.await;
+            })
+            .await
+            .expect("server runs");
+        });
+        Some(TestApp {
+            base,
+            store,
+            store_url: url,
+            backend,
+            http: reqwest::Client::builder()
+                .redirect(reqwest::redirect::Policy::none())
+                .build()
+                .unwrap(),
+            shutdown: Some(tx),
+            _folder: folder,
+            postgres,
+        })
+    }
+
+    pub fn url(&self, path: &str) -> String {
+        format!("{}{}", self.base, path)
+    }
+
+    /// Adds a person with [`PASSWORD`] (hashed once for the whole run).
+    pub async fn add_user(&self, username: &str, roles: &str) -> User {
+        let hash = tokio::task::spawn_blocking(|| PASSWORD_HASH.clone())
+            .await
+            .unwrap();
+        add_with_hash(
+            &self.store,
+            By::Operator,
+            &Username::parse(username).unwrap(),
+            &format!("{username} (display)"),
+            &Roles::parse_list(roles).unwrap(),
+            &hash,
+        )
+        .await
+        .expect("add user")
+    }
+
+    /// Issues a token for `username` through the same path as `cutpoints token issue`.
+    pub async fn token(&self, username: &str, scope: Scope) -> String {
+        cutpoints::ops::users::issue_token(&self.store, By::Operator, username, scope, "test", None)
+            .await
+            .expect("issue token")
+            .0
+    }
+
+    /// A browser-like client (cookies kept, redirects not followed) signed in as `username`.
+    pub async fn signed_in(&self, username: &str) -> Browser {
+        let browser = Browser::new(self);
+        let response = browser.sign_in(username, PASSWORD).await;
+        assert_eq!(response.status(), 303, "sign-in of {username} redirects");
+        browser
+    }
+
+    /// Every event, in order.
+    pub async fn events(&self) -> Vec<events::StoredEvent> {
+        events::list(&self.store, 0, 1_000_000, None).await.unwrap()
+    }
+
+    pub async fn event_count(&self) -> i64 {
+        events::count(&self.store).await.unwrap()
+    }
+}
+
+impl Drop for TestApp {
+    fn drop(&mut self) {
+        if let Some(tx) = self.shutdown.take() {
+            let _ = tx.send(());
+        }
+        if let Some((admin_url, name)) = self.postgres.take() {
+            // Drop the test database from a thread of its own: Drop cannot await.
+            let _ = std::thread::spawn(move || {
+                let rt = tokio::runtime::Builder::new_current_thread()
+                    .enable_all()
+                    .build()
+                    .unwrap();
+                rt.block_on(async {
+                    if let Ok(admin) = Store::connect(&admin_url).await {
+                        let _ = sqlx::query(sqlx::AssertSqlSafe(format!(
+                            "DROP DATABASE IF EXISTS {name} WITH (FORCE)"
+                        )))
+                        .execute(admin.pool())
+                        .await;
+                        admin.pool().close().await;
+                    }
+                });
+            })
+            .join();
+        }
+    }
+}
+
+/// `postgres://user@host:port/db?x` with `db` replaced.
+fn replace_database(url: &str, name: &str) -> String {
+    let (head, query) = match url.split_once('?') {
+        Some((h, q)) => (h, Some(q)),
+        None => (url, None),
+    };
+    let scheme_end = head.find("://").map(|i| i + 3).unwrap_or(0);
+    let base = match head[scheme_end..].find('/') {
+        Some(i) => &head[..scheme_end + i],
+        None => head,
+    };
+    match query {
+        Some(q) => format!("{base}/{name}?{q}"),
+        None => format!("{base}/{name}"),
+    }
+}
+
+/// A client that behaves like a browser: it keeps cookies and can post forms with the page's
+/// CSRF token.
+pub struct Browser {
+    pub client: reqwest::Client,
+    pub base: String,
+}
+
+impl Browser {
+    pub fn new(app: &TestApp) -> Browser {
+        Browser {
+            client: reqwest::Client::builder()
+                .cookie_store(true)
+                .redirect(reqwest::redirect::Policy::none())
+                .build()
+                .unwrap(),
+            base: app.base.clone(),
+        }
+    }
+
+    pub fn url(&self, path: &str) -> String {
+        format!("{}{}", self.base, path)
+    }
+
+    pub async fn get(&self, path: &str) -> reqwest::Response {
+        self.client.get(self.url(path)).send().await.unwrap()
+    }
+
+    pub async fn get_text(&self, path: &str) -> (u16, String) {
+        let r = self.get(path).await;
+        let status = r.status().as_u16();
+        (status, r.text().await.unwrap())
+    }
+
+    /// The CSRF token of the form on `path`.
+    pub async fn csrf_on(&self, path: &str) -> String {
+        let (_, html) = self.get_text(path).await;
+        csrf_in(&html).unwrap_or_else(|| panic!("no CSRF field on {path}"))
+    }
+
+    pub async fn sign_in(&self, username: &str, password: &str) -> reqwest::Response {
+        let csrf = self.csrf_on("/signin").await;
+        self.client
+            .post(self.url("/signin"))
+            .form(&[
+                ("_csrf", csrf.as_str()),
+                ("username", username),
+                ("password", password),
+                ("next", "/metrics"),
+            ])
+            .send()
+            .await
+            .unwrap()
+    }
+
+    /// Posts a form, adding the CSRF token found on `form_page`.
+    pub async fn post_form(
+        &self,
+        form_page: &str,
+        action: &str,
+        fields: &[(&str, &str)],
+    ) -> reqwest::Response {
+        let csrf = self.csrf_on(form_page).await;
+        let mut all: Vec<(&str, &str)> = vec![("_csrf", csrf.as_str())];
+        all.extend_from_slice(fields);
+        self.client
+            .post(self.url(action))
+            .form(&all)
+            .send()
+            .await
+            .unwrap()
+    }
+
+    /// The session's CSRF token for API calls, from `/api/v1/me`.
+    pub async fn api_csrf(&self) -> String {
+        let me: Value = self.get("/api/v1/me").await.json().await.unwrap();
+        me["csrf_token"].as_str().unwrap().to_string()
+    }
+}
+
+pub fn csrf_in(html: &str) -> Option<String> {
+    let marker = "name=\"_csrf\" value=\"";
+    let start = html.find(marker)? + marker.len();
+    let end = html[start..].find('"')? + start;
+    Some(html[start..end].to_string())
+}
+
+/// Runs each test body once per backend: `NAME::sqlite` and `NAME::postgres`.
+#[macro_export]
+macro_rules! on_both_backends {
+    ($(async fn $name:ident($app:ident) $body:block)*) => {$(
+        mod $name {
+            #[allow(unused_imports)]
+            use super::*;
+            async fn run($app: $crate::helpers::TestApp) $body
+
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            async fn sqlite() {
+                let app = $crate::helpers::TestApp::spawn($crate::helpers::Backend::Sqlite)
+                    .await
+                    .expect("SQLite is always available");
+                run(app).await
+            }
+
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            async fn postgres() {
+                if let Some(app) =
+                    $crate::helpers::TestApp::spawn($crate::helpers::Backend::Postgres).await
+                {
+                    run(app).await
+                }
+            }
+        }
+    )*};
+}
