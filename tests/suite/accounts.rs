@@ -355,7 +355,7 @@ on_both_backends! {
         assert_eq!(Browser::new(&app).sign_in("ana", PASSWORD).await.status(), 303);
     }
 
-    async fn admins_add_people_change_roles_and_reset_passwords_in_the_browser(app) {
+    async fn admins_add_people_change_roles_and_reset_passwords_through_the_admin_pages(app) {
         app.add_user("root", "admin").await;
         let admin = app.signed_in("root").await;
         let r = admin.post_form("/admin/users/new", "/admin/users/new", &[
@@ -419,7 +419,7 @@ on_both_backends! {
         assert!(users::find(&app.store, "x").await.unwrap().is_none());
     }
 
-    async fn admins_issue_and_revoke_tokens_in_the_browser(app) {
+    async fn admins_issue_and_revoke_tokens_through_the_admin_pages(app) {
         app.add_user("root", "admin").await;
         app.add_user("dash", "viewer").await;
         let admin = app.signed_in("root").await;

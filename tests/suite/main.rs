@@ -5,9 +5,11 @@ mod helpers;
 
 mod accounts;
 mod bad_input;
+mod browser;
 mod cli;
 mod engine_properties;
 mod engine_rules;
 mod pages;
 mod platform;
 mod register_api;
+mod serve;

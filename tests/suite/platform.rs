@@ -243,3 +243,31 @@ async fn unsupported_database_urls_are_refused_clearly() {
         "{e}"
     );
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn sqlite_runs_in_wal_mode_with_foreign_keys_and_a_busy_timeout() {
+    let app = TestApp::spawn(Backend::Sqlite).await.unwrap();
+    let mut conn = app.store.pool().acquire().await.unwrap();
+    let mode: String = sqlx::query_scalar("PRAGMA journal_mode")
+        .fetch_one(&mut *conn)
+        .await
+        .unwrap();
+    assert_eq!(mode, "wal");
+    let fk: i64 = sqlx::query_scalar("PRAGMA foreign_keys")
+        .fetch_one(&mut *conn)
+        .await
+        .unwrap();
+    assert_eq!(fk, 1);
+    let busy: i64 = sqlx::query_scalar("PRAGMA busy_timeout")
+        .fetch_one(&mut *conn)
+        .await
+        .unwrap();
+    assert!(busy >= 1000, "{busy} ms");
+    // Foreign keys are enforced: an owner row for a metric that does not exist is refused.
+    let e = sqlx::query(
+        "INSERT INTO metric_owners (metric_id, user_id, position) VALUES (999, 999, 0)",
+    )
+    .execute(&mut *conn)
+    .await;
+    assert!(e.is_err());
+}
