@@ -170,10 +170,12 @@ pub fn edit_permission(by: &User, metric: &Metric, edit: &MetricEdit) -> OpResul
 }
 
 pub async fn edit(store: &Store, by: &User, key: &str, input: &MetricEdit) -> OpResult<Metric> {
-    let current = crate::store::metrics::get(store, key).await?;
+    let mut w = store.begin_write().await?;
+    // Checked inside the write transaction, so ownership cannot change in between; who may
+    // edit is checked before what they sent.
+    let current = crate::store::metrics::get_for_update(&mut w, key).await?;
     edit_permission(by, &current, input)?;
     let patch = validate_edit(input)?;
-    let mut w = store.begin_write().await?;
     let metric =
         crate::store::metrics::update(&mut w, &Actor::User(by.username.clone()), key, &patch)
             .await?;

@@ -194,6 +194,12 @@ pub async fn get(store: &Store, key: &str) -> StoreResult<Metric> {
     find(store, key).await?.ok_or_else(|| not_found(key))
 }
 
+/// The metric as the write transaction sees it (writers are serialised, so it cannot change
+/// before the transaction ends).
+pub async fn get_for_update(w: &mut WriteTx, key: &str) -> StoreResult<Metric> {
+    find_on(w.conn(), key).await?.ok_or_else(|| not_found(key))
+}
+
 fn not_found(key: &str) -> StoreError {
     StoreError::NotFound(format!("no metric with key {key:?}"))
 }

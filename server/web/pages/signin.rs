@@ -121,6 +121,8 @@ pub async fn submit(
             sessions::end(store, &old.id_hash).await?;
         }
         let (secret, _) = sessions::create(store, &user).await?;
+        // Sign-ins are rare enough to sweep away sessions that can no longer be used.
+        sessions::purge_expired(store).await?;
         let mut response = Redirect::to(&next).into_response();
         response.headers_mut().append(
             header::SET_COOKIE,
