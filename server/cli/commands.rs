@@ -7,7 +7,7 @@ use anyhow::{Context, bail};
 use axum::http::HeaderName;
 use tokio::net::TcpListener;
 
-use super::{Command, DemoArgs, ServeArgs, TokenCommand, UserCommand};
+use super::{Command, DemoArgs, PolicyCommand, ServeArgs, TokenCommand, UserCommand};
 use crate::domain::Timestamp;
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
@@ -27,6 +27,7 @@ pub async fn run(command: Command) -> anyhow::Result<()> {
         }
         Command::User(cmd) => user(cmd).await,
         Command::Token(cmd) => token(cmd).await,
+        Command::Policy(cmd) => policy(cmd).await,
         Command::Classify(_) => unreachable!("classify runs without the runtime"),
     }
 }
@@ -312,5 +313,25 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
             println!("revoked token {} ({}) of {}", t.id, t.prefix, t.username);
         }
     }
+    Ok(())
+}
+
+async fn policy(cmd: PolicyCommand) -> anyhow::Result<()> {
+    let (db, reviewers_required) = match cmd {
+        PolicyCommand::Set {
+            reviewers_required,
+            db,
+        } => (db, reviewers_required),
+        PolicyCommand::Show { db } => (db, None),
+    };
+    let store = Store::open(&db.database_url).await?;
+    if let Some(n) = reviewers_required {
+        crate::ops::proposals::set_reviewers_required(&store, By::Operator, n)
+            .await
+            .map_err(explain)?;
+    }
+    let mut conn = store.pool().acquire().await?;
+    let n = crate::store::policy::reviewers_required(&mut conn).await?;
+    println!("reviewers_required = {n}");
     Ok(())
 }

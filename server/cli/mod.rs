@@ -71,6 +71,9 @@ pub enum Command {
     /// Manage API tokens.
     #[command(subcommand)]
     Token(TokenCommand),
+    /// Change the approval policy (recorded in the event record).
+    #[command(subcommand)]
+    Policy(PolicyCommand),
     /// Classify values against a cut set; prints one JSON object per value per line.
     Classify(classify::ClassifyArgs),
 }
@@ -127,6 +130,23 @@ pub enum UserCommand {
         username: String,
         #[arg(long, env = "CUTPOINTS_PASSWORD_STDIN", required = true)]
         password_stdin: bool,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+pub enum PolicyCommand {
+    /// Set the approval policy; prints the policy in force afterwards.
+    Set {
+        /// How many current reviewer approvals a proposal needs (1 to 10).
+        #[arg(long, env = "CUTPOINTS_REVIEWERS_REQUIRED")]
+        reviewers_required: Option<i64>,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// Print the approval policy.
+    Show {
         #[command(flatten)]
         db: DatabaseArgs,
     },

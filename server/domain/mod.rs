@@ -5,6 +5,7 @@ pub mod key;
 pub mod metric;
 pub mod number;
 pub mod people;
+pub mod proposal;
 pub mod text;
 pub mod thresholds;
 pub mod time;

@@ -1,6 +1,9 @@
-//! The threshold engine: plain Rust over domain types, with no web or database types, so it
-//! can be tested on its own.
+//! The threshold engine and the workflow rules: plain Rust over domain types, with no web or
+//! database types, so they can be tested on their own.
 
+pub mod canonical;
+pub mod changes;
 pub mod classify;
+pub mod workflow;
 
 pub use classify::{Classification, Side, Zone, classify, classify_all};

@@ -2,7 +2,9 @@
 //! call of each action, shared by the HTTP API, the pages and the command line. Knows no HTTP.
 
 pub mod metrics;
+pub mod proposals;
 pub mod users;
+pub mod versions;
 
 use crate::domain::metric::Problems;
 use crate::store::StoreError;
@@ -15,6 +17,15 @@ pub enum OpError {
     Forbidden(String),
     #[error("{}", .0.first_message())]
     Invalid(Problems),
+    /// The right person at the wrong time: wrong state, stale revision, a repeat.
+    #[error("{0}")]
+    Conflict(String),
+    /// A password re-entered for a signature did not match.
+    #[error("{0}")]
+    BadCredentials(String),
+    /// Too many failed attempts; try again after this many seconds.
+    #[error("too many failed attempts; try again in {0} seconds")]
+    Throttled(u64),
     #[error(transparent)]
     Store(#[from] StoreError),
 }

@@ -7,11 +7,14 @@
 
 pub mod events;
 pub mod metrics;
+pub mod policy;
+pub mod proposals;
 pub mod sessions;
 pub mod throttle;
 mod timestamp;
 pub mod tokens;
 pub mod users;
+pub mod versions;
 
 use std::time::Duration;
 

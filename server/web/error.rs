@@ -115,6 +115,9 @@ impl From<OpError> for ApiError {
         match e {
             OpError::Forbidden(m) => ApiError::forbidden(m),
             OpError::Invalid(p) => ApiError::invalid(p),
+            OpError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
+            OpError::BadCredentials(m) => ApiError::unauthorized(m),
+            OpError::Throttled(seconds) => ApiError::throttled(seconds),
             OpError::Store(s) => s.into(),
         }
     }

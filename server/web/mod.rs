@@ -6,6 +6,7 @@ pub mod auth;
 pub mod error;
 pub mod extract;
 pub mod pages;
+pub mod svg;
 pub mod templates;
 
 use std::future::Future;
@@ -140,11 +141,22 @@ async fn page_not_found() -> PageError {
 
 fn api_routes(config: &WebConfig) -> Router<AppState> {
     use api::metrics as m;
+    use api::proposals as p;
     Router::new()
         .route("/v1/me", get(api::me))
         .route("/v1/classify", post(api::classify::classify))
         .route("/v1/metrics", get(m::list).post(m::create))
         .route("/v1/metrics/{key}", get(m::show).patch(m::edit))
+        .route("/v1/metrics/{key}/proposals", post(p::create))
+        .route("/v1/metrics/{key}/history", get(p::history))
+        .route("/v1/proposals/{id}", get(p::show).put(p::revise))
+        .route("/v1/proposals/{id}/submit", post(p::submit))
+        .route("/v1/proposals/{id}/comments", post(p::comment))
+        .route("/v1/proposals/{id}/reviews", post(p::review))
+        .route("/v1/proposals/{id}/signoff", post(p::signoff))
+        .route("/v1/proposals/{id}/withdraw", post(p::withdraw))
+        .route("/v1/proposals/{id}/reject", post(p::reject))
+        .route("/v1/inbox", get(p::inbox))
         .fallback(api::not_found)
         .method_not_allowed_fallback(api::method_not_allowed)
         .layer(DefaultBodyLimit::max(config.body_limit))

@@ -90,9 +90,25 @@ pub async fn show(
     KeyPath(key): KeyPath,
 ) -> Result<Response, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
+    let history = crate::ops::versions::history(&state.store, &metric).await?;
+    let (in_force, scheduled) = crate::ops::versions::current(&history);
+    let open = {
+        let mut conn = state
+            .store
+            .pool()
+            .acquire()
+            .await
+            .map_err(crate::store::StoreError::from)?;
+        crate::store::proposals::open_for_metric(&mut conn, metric.id).await?
+    };
     let mut body = json!(metric);
-    // Threshold versions arrive with the agreement workflow; until then none is in force.
-    body["version_in_force"] = serde_json::Value::Null;
+    body["version_in_force"] = json!(in_force);
+    body["scheduled_version"] = json!(scheduled);
+    body["open_proposal"] = json!(open.map(|p| json!({
+        "id": p.id,
+        "state": p.state,
+        "url": format!("/api/v1/proposals/{}", p.id),
+    })));
     Ok(Json(body).into_response())
 }
 

@@ -2,6 +2,7 @@
 
 pub mod classify;
 pub mod metrics;
+pub mod proposals;
 
 use axum::Json;
 use axum::response::{IntoResponse, Response};

@@ -1,0 +1,99 @@
+//! Reading a metric's approved versions: the one in force, any scheduled one, and the whole
+//! history with what changed from one version to the next.
+
+use std::collections::BTreeMap;
+
+use serde::Serialize;
+
+use super::OpResult;
+use crate::domain::Timestamp;
+use crate::domain::proposal::cuts_object;
+use crate::engine::canonical::unified_diff;
+use crate::engine::changes::{FieldChanges, compare};
+use crate::store::Store;
+use crate::store::metrics::Metric;
+use crate::store::versions::{self, VersionRecord, VersionStatus};
+
+/// A version as the API and pages show it.
+#[derive(Clone, Debug, Serialize)]
+pub struct VersionView {
+    pub number: i64,
+    pub status: VersionStatus,
+    pub direction: &'static str,
+    pub cuts: BTreeMap<&'static str, f64>,
+    pub shades: u8,
+    pub unit: String,
+    pub effective_from: Timestamp,
+    /// When it was approved: the transaction time at which the register recorded it.
+    pub approved_at: Timestamp,
+    /// Approved after its effective time: a recorded retroactive change.
+    pub retroactive: bool,
+    pub rationale: String,
+    pub approvers: Vec<String>,
+    pub signatory: Option<String>,
+    pub proposal_id: i64,
+    pub revision_number: i64,
+    pub revision_hash: String,
+    pub canonical_text: String,
+    /// Unified diff from the previous version's canonical text (empty for the first).
+    pub diff_from_previous: String,
+    pub changes: FieldChanges,
+    #[serde(skip)]
+    pub record: VersionRecord,
+}
+
+pub fn view(
+    v: &VersionRecord,
+    previous: Option<&VersionRecord>,
+    status: VersionStatus,
+) -> VersionView {
+    VersionView {
+        number: v.number,
+        status,
+        direction: v.content.direction().as_str(),
+        cuts: cuts_object(&v.content.cuts),
+        shades: v.content.shades.get(),
+        unit: v.content.unit.clone(),
+        effective_from: v.effective_from,
+        approved_at: v.approved_at,
+        retroactive: v.is_retroactive(),
+        rationale: v.content.rationale.clone(),
+        approvers: v.approvers.clone(),
+        signatory: v.signatory.clone(),
+        proposal_id: v.proposal_id,
+        revision_number: v.revision_number,
+        revision_hash: v.revision_hash.clone(),
+        canonical_text: v.canonical_text.clone(),
+        diff_from_previous: previous
+            .map(|p| unified_diff(&p.canonical_text, &v.canonical_text))
+            .unwrap_or_default(),
+        changes: compare(previous.map(|p| &p.content.cuts), &v.content.cuts),
+        record: v.clone(),
+    }
+}
+
+/// Every version of the metric, oldest first, with its status now.
+pub async fn history(store: &Store, metric: &Metric) -> OpResult<Vec<VersionView>> {
+    let mut conn = store
+        .pool()
+        .acquire()
+        .await
+        .map_err(crate::store::StoreError::from)?;
+    let all = versions::list(&mut conn, metric.id).await?;
+    let statuses = versions::statuses(&all, Timestamp::now());
+    Ok(all
+        .iter()
+        .enumerate()
+        .map(|(i, v)| view(v, i.checked_sub(1).map(|p| &all[p]), statuses[i]))
+        .collect())
+}
+
+/// The version in force now and the scheduled one after it, if any.
+pub fn current(history: &[VersionView]) -> (Option<&VersionView>, Option<&VersionView>) {
+    let in_force = history.iter().find(|v| v.status == VersionStatus::InForce);
+    let scheduled = history
+        .iter()
+        .rev()
+        .find(|v| v.status == VersionStatus::Scheduled);
+    (in_force, scheduled)
+}

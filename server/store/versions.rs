@@ -1,0 +1,242 @@
+//! Approved threshold versions of each metric. A version is in force over
+//! [effective_from, next version's effective_from); its status is derived from times, so no
+//! job has to run when a scheduled version takes effect.
+
+use serde::Serialize;
+use sqlx::{AnyConnection, Row};
+
+use super::{StoreError, StoreResult, WriteTx};
+use crate::domain::Timestamp;
+use crate::domain::proposal::ThresholdContent;
+use crate::domain::thresholds::{CutSet, Direction, Shades};
+
+/// A version's place in time, seen from one instant.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum VersionStatus {
+    /// Approved, effective time still ahead.
+    Scheduled,
+    InForce,
+    /// A later version took effect.
+    Superseded,
+}
+
+impl VersionStatus {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            VersionStatus::Scheduled => "scheduled",
+            VersionStatus::InForce => "in_force",
+            VersionStatus::Superseded => "superseded",
+        }
+    }
+}
+
+#[derive(Clone, Debug)]
+pub struct VersionRecord {
+    pub id: i64,
+    pub metric_id: i64,
+    pub number: i64,
+    pub proposal_id: i64,
+    pub revision_number: i64,
+    pub revision_hash: String,
+    pub content: ThresholdContent,
+    pub effective_from: Timestamp,
+    pub approved_at: Timestamp,
+    pub canonical_text: String,
+    pub approvers: Vec<String>,
+    pub signatory: Option<String>,
+}
+
+impl VersionRecord {
+    /// When the published set first showed this version: approval and effect both needed.
+    pub fn published_at(&self) -> Timestamp {
+        self.approved_at.max(self.effective_from)
+    }
+
+    /// Approved after the time it took effect: a recorded retroactive change.
+    pub fn is_retroactive(&self) -> bool {
+        self.effective_from < self.approved_at
+    }
+}
+
+/// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
+pub(super) fn cuts_from_row(row: &sqlx::any::AnyRow) -> StoreResult<(CutSet, Shades)> {
+    let direction: String = row.try_get("direction")?;
+    let direction: Direction = direction
+        .parse()
+        .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
+    let cuts = CutSet::new(
+        direction,
+        [
+            row.try_get("cut_1")?,
+            row.try_get("cut_2")?,
+            row.try_get("cut_3")?,
+            row.try_get("cut_4")?,
+        ],
+    )
+    .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
+    let shades: i64 = row.try_get("shades")?;
+    let shades =
+        Shades::new(shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
+    Ok((cuts, shades))
+}
+
+fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {
+    let (cuts, shades) = cuts_from_row(row)?;
+    let effective_from: Timestamp = row.try_get("effective_from")?;
+    let approvers: String = row.try_get("approvers")?;
+    Ok(VersionRecord {
+        id: row.try_get("id")?,
+        metric_id: row.try_get("metric_id")?,
+        number: row.try_get("number")?,
+        proposal_id: row.try_get("proposal_id")?,
+        revision_number: row.try_get("revision_number")?,
+        revision_hash: row.try_get("revision_hash")?,
+        content: ThresholdContent {
+            cuts,
+            shades,
+            unit: row.try_get("unit")?,
+            effective_from: Some(effective_from),
+            rationale: row.try_get("rationale")?,
+        },
+        effective_from,
+        approved_at: row.try_get("approved_at")?,
+        canonical_text: row.try_get("canonical_text")?,
+        approvers: serde_json::from_str(&approvers).unwrap_or_default(),
+        signatory: row.try_get("signatory")?,
+    })
+}
+
+macro_rules! select_versions {
+    ($rest:literal) => {
+        concat!(
+            "SELECT id, metric_id, number, proposal_id, revision_number, revision_hash, direction, ",
+            "cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, rationale, ",
+            "canonical_text, approvers, signatory FROM versions ",
+            $rest
+        )
+    };
+}
+
+/// Every version of a metric, oldest first.
+pub async fn list(conn: &mut AnyConnection, metric_id: i64) -> StoreResult<Vec<VersionRecord>> {
+    let rows = sqlx::query(select_versions!("WHERE metric_id = $1 ORDER BY number"))
+        .bind(metric_id)
+        .fetch_all(&mut *conn)
+        .await?;
+    rows.iter().map(version_from_row).collect()
+}
+
+/// The latest approved version (scheduled ones included): the one a new version follows in
+/// valid time, since effective times never run backwards.
+pub async fn latest(
+    conn: &mut AnyConnection,
+    metric_id: i64,
+) -> StoreResult<Option<VersionRecord>> {
+    let row = sqlx::query(select_versions!(
+        "WHERE metric_id = $1 ORDER BY number DESC LIMIT 1"
+    ))
+    .bind(metric_id)
+    .fetch_optional(&mut *conn)
+    .await?;
+    row.as_ref().map(version_from_row).transpose()
+}
+
+/// The version in force at `as_of` as the register knew it at `known_at`: the latest one
+/// approved by `known_at` whose effective time is not after `as_of`.
+pub async fn in_force(
+    conn: &mut AnyConnection,
+    metric_id: i64,
+    as_of: Timestamp,
+    known_at: Timestamp,
+) -> StoreResult<Option<VersionRecord>> {
+    let row = sqlx::query(select_versions!(
+        "WHERE metric_id = $1 AND effective_from <= $2 AND approved_at <= $3 ORDER BY number DESC LIMIT 1"
+    ))
+    .bind(metric_id)
+    .bind(as_of)
+    .bind(known_at)
+    .fetch_optional(&mut *conn)
+    .await?;
+    row.as_ref().map(version_from_row).transpose()
+}
+
+/// Each version's status at `now`, given all of a metric's versions in order.
+pub fn statuses(versions: &[VersionRecord], now: Timestamp) -> Vec<VersionStatus> {
+    let in_force = versions
+        .iter()
+        .filter(|v| v.effective_from <= now)
+        .map(|v| v.number)
+        .max();
+    versions
+        .iter()
+        .map(|v| match in_force {
+            _ if v.effective_from > now => VersionStatus::Scheduled,
+            Some(n) if v.number == n => VersionStatus::InForce,
+            _ => VersionStatus::Superseded,
+        })
+        .collect()
+}
+
+/// What a new version is made of.
+pub struct NewVersion<'a> {
+    pub metric_id: i64,
+    pub proposal_id: i64,
+    pub revision_number: i64,
+    pub revision_hash: &'a str,
+    pub content: &'a ThresholdContent,
+    pub effective_from: Timestamp,
+    pub canonical_text: &'a str,
+    pub approvers: &'a [String],
+    pub signatory: Option<&'a str>,
+}
+
+/// Records a version, numbered after the metric's last; returns its number.
+pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
+    let number: i64 = sqlx::query_scalar(
+        "SELECT CAST(COALESCE(MAX(number), 0) + 1 AS BIGINT) FROM versions WHERE metric_id = $1",
+    )
+    .bind(v.metric_id)
+    .fetch_one(w.conn())
+    .await?;
+    let [c1, c2, c3, c4] = v.content.cuts.values();
+    let approved_at = w.now();
+    sqlx::query(
+        "INSERT INTO versions (metric_id, number, proposal_id, revision_number, revision_hash, \
+         direction, cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, \
+         rationale, canonical_text, approvers, signatory) \
+         VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18)",
+    )
+    .bind(v.metric_id)
+    .bind(number)
+    .bind(v.proposal_id)
+    .bind(v.revision_number)
+    .bind(v.revision_hash)
+    .bind(v.content.direction().as_str())
+    .bind(c1)
+    .bind(c2)
+    .bind(c3)
+    .bind(c4)
+    .bind(i64::from(v.content.shades.get()))
+    .bind(&v.content.unit)
+    .bind(v.effective_from)
+    .bind(approved_at)
+    .bind(&v.content.rationale)
+    .bind(v.canonical_text)
+    .bind(serde_json::to_string(v.approvers).expect("names serialise"))
+    .bind(v.signatory)
+    .execute(w.conn())
+    .await?;
+    Ok(number)
+}
+
+/// `set_revision` at `at`: how many versions, across the register, had been both approved and
+/// effective by then. It changes exactly when the published set's content changes.
+pub async fn set_revision(conn: &mut AnyConnection, at: Timestamp) -> StoreResult<i64> {
+    Ok(sqlx::query_scalar(
+        "SELECT COUNT(*) FROM versions WHERE approved_at <= $1 AND effective_from <= $1",
+    )
+    .bind(at)
+    .fetch_one(&mut *conn)
+    .await?)
+}
