@@ -80,7 +80,7 @@ pub async fn history(store: &Store, metric: &Metric) -> OpResult<Vec<VersionView
         .await
         .map_err(crate::store::StoreError::from)?;
     let all = versions::list(&mut conn, metric.id).await?;
-    let statuses = versions::statuses(&all, Timestamp::now());
+    let statuses = versions::statuses(&all, store.now());
     Ok(all
         .iter()
         .enumerate()

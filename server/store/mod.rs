@@ -16,6 +16,7 @@ pub mod tokens;
 pub mod users;
 pub mod versions;
 
+use std::sync::{Arc, RwLock};
 use std::time::Duration;
 
 use sqlx::any::{AnyConnectOptions, AnyPoolOptions};
@@ -89,6 +90,9 @@ static POSTGRES_MIGRATIONS: sqlx::migrate::Migrator = sqlx::migrate!("migrations
 pub struct Store {
     pool: AnyPool,
     backend: Backend,
+    /// When set, the time writes are recorded at (the demo seeds an invented past; tests
+    /// step through time). Shared by every clone of this handle.
+    clock: Arc<RwLock<Option<Timestamp>>>,
 }
 
 /// Adds `mode=rwc` to a SQLite URL so the file is created when missing.
@@ -137,7 +141,11 @@ impl Store {
                 .execute(&pool)
                 .await?;
         }
-        Ok(Store { pool, backend })
+        Ok(Store {
+            pool,
+            backend,
+            clock: Arc::default(),
+        })
     }
 
     /// Opens and migrates: what `serve` and the tests use.
@@ -161,6 +169,20 @@ impl Store {
         }
         result?;
         Ok(())
+    }
+
+    /// Records the following writes at `at` instead of the system time (`None`: back to the
+    /// system clock). Event times still never run backwards.
+    pub fn set_clock(&self, at: Option<Timestamp>) {
+        *self.clock.write().expect("the clock lock is never poisoned") = at;
+    }
+
+    /// The time a write made now is recorded at.
+    pub fn now(&self) -> Timestamp {
+        self.clock
+            .read()
+            .expect("the clock lock is never poisoned")
+            .unwrap_or_else(Timestamp::now)
     }
 
     pub fn backend(&self) -> Backend {
@@ -201,7 +223,7 @@ impl Store {
         };
         let head = events::lock_head(&mut tx).await?;
         // Event times never run backwards, even if the clock steps back.
-        let now = std::cmp::max(Timestamp::now(), head.at);
+        let now = std::cmp::max(self.now(), head.at);
         Ok(WriteTx {
             tx,
             head,

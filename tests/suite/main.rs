@@ -18,3 +18,4 @@ mod workflow_api;
 mod workflow_races;
 mod workflow_support;
 mod zone_strip;
+mod demo_data;

@@ -1,0 +1,1 @@
+//! Tests of the demo scenario's data (to be written).
