@@ -18,6 +18,10 @@ pub struct CutChange {
     pub changed: bool,
     /// "intervene 80 -> 75 (-5, -6.25 %)"
     pub text: String,
+    /// The absolute change as shown: "-5", "+0.5", or "n/a".
+    pub absolute_text: String,
+    /// The relative change as shown: "-6.25 %", or "n/a" (old value 0, or a side missing).
+    pub relative_text: String,
 }
 
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -98,6 +102,8 @@ fn cut_change(cut: &'static str, old: Option<f64>, new: Option<f64>) -> CutChang
         relative,
         changed,
         text,
+        absolute_text: absolute.map_or_else(|| "n/a".into(), signed),
+        relative_text: relative.map_or_else(|| "n/a".into(), |r| format!("{} %", percent(r))),
     }
 }
 

@@ -826,6 +826,8 @@ pub struct ProposalView {
     pub updated_at: Timestamp,
     pub closed_at: Option<Timestamp>,
     pub close_reason: String,
+    /// The revision that was sent back, if it was: resubmitting needs a later one.
+    pub sent_back_revision: Option<i64>,
     pub version: Option<i64>,
     pub latest_revision: RevisionView,
     pub revisions: Vec<RevisionView>,
@@ -896,6 +898,7 @@ fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>
         updated_at: p.updated_at,
         closed_at: p.closed_at,
         close_reason: p.close_reason.clone(),
+        sent_back_revision: p.sent_back_revision,
         version: p.version_number,
         latest_revision: revision_view(bundle.latest()),
         revisions: bundle.revisions.iter().map(revision_view).collect(),

@@ -174,7 +174,10 @@ impl Store {
     /// Records the following writes at `at` instead of the system time (`None`: back to the
     /// system clock). Event times still never run backwards.
     pub fn set_clock(&self, at: Option<Timestamp>) {
-        *self.clock.write().expect("the clock lock is never poisoned") = at;
+        *self
+            .clock
+            .write()
+            .expect("the clock lock is never poisoned") = at;
     }
 
     /// The time a write made now is recorded at.

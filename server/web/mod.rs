@@ -163,7 +163,7 @@ fn api_routes(config: &WebConfig) -> Router<AppState> {
 }
 
 fn page_routes() -> Router<AppState> {
-    use pages::{admin, metrics, signin};
+    use pages::{admin, metrics, proposals, signin};
     Router::new()
         .route("/", get(home))
         .route("/signin", get(signin::show).post(signin::submit))
@@ -175,6 +175,22 @@ fn page_routes() -> Router<AppState> {
             "/metrics/{key}/edit",
             get(metrics::edit_form).post(metrics::edit),
         )
+        .route("/inbox", get(proposals::inbox))
+        .route(
+            "/metrics/{key}/proposals/new",
+            get(proposals::new_form).post(proposals::create),
+        )
+        .route("/proposals/{id}", get(proposals::show))
+        .route(
+            "/proposals/{id}/edit",
+            get(proposals::edit_form).post(proposals::revise),
+        )
+        .route("/proposals/{id}/submit", post(proposals::submit))
+        .route("/proposals/{id}/comments", post(proposals::comment))
+        .route("/proposals/{id}/reviews", post(proposals::review))
+        .route("/proposals/{id}/signoff", post(proposals::signoff))
+        .route("/proposals/{id}/withdraw", post(proposals::withdraw))
+        .route("/proposals/{id}/reject", post(proposals::reject))
         .route("/admin/users", get(admin::users_list))
         .route(
             "/admin/users/new",

@@ -203,7 +203,7 @@ fn at(v: f64) -> String {
 
 /// Escapes text for XML content and attribute values (& < > " '), and replaces the characters
 /// XML 1.0 cannot carry at all, even escaped (most C0 controls, U+FFFE, U+FFFF), with U+FFFD.
-fn escape(text: &str) -> String {
+pub fn escape(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
     for c in text.chars() {
         match c {

@@ -4,39 +4,28 @@ use std::sync::LazyLock;
 
 use tera::{Context, Kwargs, State, Tera};
 
+/// `(name, text)` of templates in `templates/`, compiled into the binary.
+macro_rules! embed {
+    ($($name:literal),* $(,)?) => {
+        &[$(($name, include_str!(concat!("../../templates/", $name)))),*]
+    };
+}
+
 /// Every template, by name. They live in `templates/` at the top of the repository.
-const TEMPLATES: &[(&str, &str)] = &[
-    ("base.html", include_str!("../../templates/base.html")),
-    ("error.html", include_str!("../../templates/error.html")),
-    ("signin.html", include_str!("../../templates/signin.html")),
-    (
-        "metrics_list.html",
-        include_str!("../../templates/metrics_list.html"),
-    ),
-    (
-        "metric_detail.html",
-        include_str!("../../templates/metric_detail.html"),
-    ),
-    (
-        "metric_form.html",
-        include_str!("../../templates/metric_form.html"),
-    ),
-    (
-        "admin_users.html",
-        include_str!("../../templates/admin_users.html"),
-    ),
-    (
-        "admin_user.html",
-        include_str!("../../templates/admin_user.html"),
-    ),
-    (
-        "admin_user_new.html",
-        include_str!("../../templates/admin_user_new.html"),
-    ),
-    (
-        "admin_tokens.html",
-        include_str!("../../templates/admin_tokens.html"),
-    ),
+const TEMPLATES: &[(&str, &str)] = embed![
+    "base.html",
+    "error.html",
+    "signin.html",
+    "metrics_list.html",
+    "metric_detail.html",
+    "metric_form.html",
+    "admin_users.html",
+    "admin_user.html",
+    "admin_user_new.html",
+    "admin_tokens.html",
+    "proposal.html",
+    "proposal_form.html",
+    "inbox.html",
 ];
 
 /// The style sheet, served at `/static/style.css`.
@@ -48,6 +37,10 @@ static TERA: LazyLock<Tera> = LazyLock::new(|| {
         serde_urlencoded::to_string([("", s)])
             .map(|e| e.trim_start_matches('=').to_string())
             .unwrap_or_default()
+    });
+    // Numbers in the shortest form that reads back as the same value: 75, 0.1, 1e-7.
+    tera.register_filter("num", |v: f64, _: Kwargs, _: &State| {
+        crate::domain::number::format(v)
     });
     tera.add_raw_templates(TEMPLATES.iter().copied())
         .expect("the page templates parse");

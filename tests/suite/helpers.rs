@@ -67,6 +67,12 @@ impl TestApp {
     }
 
     pub async fn spawn_with(backend: Backend, config: WebConfig) -> Option<TestApp> {
+        // Server-side errors (a template that fails, a database error) show in the output of
+        // the test that caused them.
+        let _ = tracing_subscriber::fmt()
+            .with_env_filter("cutpoints=warn")
+            .with_test_writer()
+            .try_init();
         let (url, folder, postgres) = match backend {
             Backend::Sqlite => {
                 let folder = tempfile::tempdir().expect("temp folder");

@@ -98,10 +98,95 @@ pub async fn detail(
         "edited" => Some("Your changes were saved."),
         _ => None,
     };
+    let history = crate::ops::versions::history(&state.store, &metric).await?;
+    let (in_force, scheduled) = crate::ops::versions::current(&history);
+    let (open, proposals) = {
+        let mut conn = state
+            .store
+            .pool()
+            .acquire()
+            .await
+            .map_err(crate::store::StoreError::from)?;
+        (
+            crate::store::proposals::open_for_metric(&mut conn, metric.id).await?,
+            crate::store::proposals::for_metric(&mut conn, metric.id).await?,
+        )
+    };
+    let open_view = match &open {
+        Some(p) => Some(crate::ops::proposals::get(&state.store, p.id).await?.0),
+        None => None,
+    };
+    // The strip shows the version in force, the scheduled one, and the open proposal.
+    let mut rows: Vec<(String, crate::domain::thresholds::CutSet)> = Vec::new();
+    for v in in_force.iter().chain(scheduled.iter()) {
+        let label = format!(
+            "Version {} ({})",
+            v.number,
+            v.status.as_str().replace('_', " ")
+        );
+        rows.push((label, v.record.content.cuts));
+    }
+    if let Some(view) = &open_view {
+        let r = &view.latest_revision;
+        if let Ok(cuts) = crate::domain::thresholds::CutSet::from_named(
+            r.direction
+                .parse()
+                .unwrap_or(crate::domain::Direction::HigherIsBetter),
+            r.cuts.iter().map(|(k, v)| (*k, *v)),
+        ) {
+            rows.push((
+                format!("Proposal {} ({})", view.id, view.state.as_str()),
+                cuts,
+            ));
+        }
+    }
+    let strip_rows: Vec<_> = rows
+        .iter()
+        .map(|(caption, cuts)| crate::web::svg::StripRow { caption, cuts })
+        .collect();
+    let unit = in_force.map_or(metric.unit.as_str(), |v| v.unit.as_str());
+    let strip = if strip_rows.is_empty() {
+        String::new()
+    } else {
+        crate::web::svg::zone_strip(&format!("{}: zones", metric.name), unit, &strip_rows)
+    };
+    let can_propose = open.is_none()
+        && crate::engine::workflow::may_propose(crate::engine::workflow::Actor {
+            username: &session.user.username,
+            roles: &session.user.roles,
+            owns_metric: metric.is_owner(&session.user.username),
+        })
+        .is_ok();
     let mut ctx = base_context(Some(&session), &metric.name, "register");
     ctx.insert("can_edit", &may_edit(&session, &metric));
+    ctx.insert("can_propose", &can_propose);
     ctx.insert("saved", &saved);
     ctx.insert("metric", &metric);
+    ctx.insert("in_force", &in_force);
+    ctx.insert("scheduled", &scheduled);
+    ctx.insert("history", &history.iter().rev().collect::<Vec<_>>());
+    ctx.insert("open", &open_view);
+    ctx.insert(
+        "closed_proposals",
+        &proposals
+            .iter()
+            .filter(|p| !p.state.is_open())
+            .map(|p| json!({"id": p.id, "state": p.state, "updated_at": p.updated_at, "version": p.version_number}))
+            .collect::<Vec<_>>(),
+    );
+    ctx.insert("strip", &strip);
+    ctx.insert(
+        "diffs",
+        &history
+            .iter()
+            .map(|v| {
+                (
+                    v.number.to_string(),
+                    crate::web::pages::proposals::diff_html(&v.diff_from_previous),
+                )
+            })
+            .collect::<std::collections::BTreeMap<_, _>>(),
+    );
     Ok(page("metric_detail.html", &ctx))
 }
 

@@ -3,6 +3,7 @@
 
 pub mod admin;
 pub mod metrics;
+pub mod proposals;
 pub mod signin;
 
 use std::collections::BTreeMap;
