@@ -218,3 +218,198 @@ async fn in_chromium_an_admin_signs_in_adds_a_metric_and_sees_it_listed() {
     assert_eq!(m.unit, "hours");
     assert_eq!(m.tags, ["fleet", "workshop"]);
 }
+
+async fn sign_in_as(client: &Client, base: &str, who: &str) {
+    client.goto(&format!("{base}/signin")).await.unwrap();
+    fill(client, "username", who).await;
+    fill(client, "password", PASSWORD).await;
+    click_button(client, "Sign in").await;
+    client
+        .wait()
+        .for_element(Locator::XPath("//button[normalize-space()='Sign out']"))
+        .await
+        .unwrap();
+}
+
+async fn sign_out(client: &Client) {
+    click_button(client, "Sign out").await;
+    client
+        .wait()
+        .for_element(Locator::Id("username"))
+        .await
+        .unwrap();
+}
+
+async fn click_link(client: &Client, text: &str) {
+    client
+        .find(Locator::LinkText(text))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
+}
+
+async fn page_text(client: &Client) -> String {
+    client
+        .find(Locator::Css("main"))
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap()
+}
+
+/// Waits for the page that carries this notice (the one before may still be showing).
+async fn wait_notice(client: &Client, text: &str) {
+    let xpath = format!("//p[contains(@class, 'notice') and contains(., '{text}')]");
+    client
+        .wait()
+        .for_element(Locator::XPath(&xpath))
+        .await
+        .unwrap();
+}
+
+/// Owner proposes, reviewer sends back, owner revises, reviewer approves, signatory signs with
+/// her password, and the metric page shows the version in force with its zone strip.
+async fn the_whole_agreement(base: &str, client: &Client) {
+    let metric = format!("{base}/metrics/{}", crate::workflow_support::METRIC);
+    sign_in_as(client, base, "tomas").await;
+    client.goto(&metric).await.unwrap();
+    click_link(client, "Propose new thresholds").await;
+    for (name, value) in [
+        ("critical", "50"),
+        ("intervene", "70"),
+        ("outperform", "80"),
+        ("stretch", "90"),
+    ] {
+        fill(client, &format!("cut-{name}"), value).await;
+    }
+    fill(
+        client,
+        "rationale",
+        "Members walk when docks are empty at 08:00.",
+    )
+    .await;
+    click_button(client, "Save as draft").await;
+    wait_notice(client, "saved as a draft").await;
+    let proposal = client.current_url().await.unwrap().path().to_string();
+    click_button(client, "Submit for review").await;
+    wait_notice(client, "Submitted for review.").await;
+    sign_out(client).await;
+
+    sign_in_as(client, base, "hana").await;
+    client.goto(&format!("{base}/inbox")).await.unwrap();
+    client
+        .find(Locator::Css(&format!("a[href='{proposal}']")))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
+    client
+        .wait()
+        .for_element(Locator::Css("input[value='send_back']"))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
+    fill(
+        client,
+        "review-comment",
+        "Why 70? Show last winter's numbers.",
+    )
+    .await;
+    click_button(client, "Record verdict").await;
+    wait_notice(client, "sent back to its owners").await;
+    sign_out(client).await;
+
+    sign_in_as(client, base, "tomas").await;
+    client.goto(&format!("{base}{proposal}")).await.unwrap();
+    click_link(client, "Revise").await;
+    fill(client, "cut-intervene", "72").await;
+    fill(client, "note", "intervene 72 after the winter numbers").await;
+    click_button(client, "Save revision").await;
+    wait_notice(client, "A new revision was saved.").await;
+    click_button(client, "Submit for review").await;
+    wait_notice(client, "Submitted for review.").await;
+    sign_out(client).await;
+
+    sign_in_as(client, base, "hana").await;
+    client.goto(&format!("{base}{proposal}")).await.unwrap();
+    client
+        .find(Locator::Css("input[value='approve']"))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
+    click_button(client, "Record verdict").await;
+    wait_notice(client, "Your approval was recorded.").await;
+    assert!(
+        page_text(client)
+            .await
+            .contains("signatory sign-off needed")
+    );
+    sign_out(client).await;
+
+    sign_in_as(client, base, "odile").await;
+    client.goto(&format!("{base}{proposal}")).await.unwrap();
+    fill(client, "signoff-password", PASSWORD).await;
+    click_button(client, "Sign off as odile (display)").await;
+    wait_notice(client, "Approved: the new version is recorded.").await;
+
+    client.goto(&metric).await.unwrap();
+    let text = page_text(client).await;
+    assert!(text.contains("Version 1 is in force since"), "{text}");
+    assert!(text.contains("signed off by odile (display)"));
+    let strip = client.find(Locator::Css("figure.strip svg")).await.unwrap();
+    assert_eq!(strip.attr("role").await.unwrap().as_deref(), Some("img"));
+    let labels = client
+        .find_all(Locator::Css("figure.strip svg text"))
+        .await
+        .unwrap();
+    let mut words = String::new();
+    for l in labels {
+        words.push_str(&l.text().await.unwrap());
+        words.push(' ');
+    }
+    for zone in ["critical", "intervene", "steady", "outperform", "stretch"] {
+        assert!(words.contains(zone), "the strip names {zone}: {words}");
+    }
+    assert!(words.contains("intervene 72"), "{words}");
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn in_chromium_a_proposal_is_sent_back_revised_approved_and_signed() {
+    let Some((driver, chromium)) = start_driver().await else {
+        return;
+    };
+    let app = TestApp::spawn(Backend::Sqlite).await.unwrap();
+    let team = crate::workflow_support::Team::new(app).await;
+    let client = browser(&driver, &chromium).await;
+    let flow = tokio::spawn({
+        let client = client.clone();
+        let base = team.app.base.clone();
+        async move { the_whole_agreement(&base, &client).await }
+    });
+    let result = flow.await;
+    let _ = client.close().await;
+    if let Err(e) = result {
+        std::panic::resume_unwind(e.into_panic());
+    }
+    let (_, m) = team
+        .call(
+            "wren",
+            "GET",
+            &format!("/api/v1/metrics/{}", crate::workflow_support::METRIC),
+            None,
+        )
+        .await;
+    assert_eq!(m["version_in_force"]["cuts"]["intervene"], 72.0);
+    assert_eq!(
+        m["version_in_force"]["approvers"],
+        serde_json::json!(["hana (display)"])
+    );
+}
