@@ -18,5 +18,6 @@ mod serve;
 mod workflow_api;
 mod workflow_pages;
 mod workflow_races;
+mod workflow_rules;
 mod workflow_support;
 mod zone_strip;

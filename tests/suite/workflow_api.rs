@@ -536,4 +536,38 @@ on_both_backends! {
         let (_, hana) = team.call("hana", "GET", "/api/v1/inbox", None).await;
         assert_eq!(hana["to_review"], json!([]), "already approved by hana");
     }
+
+    async fn set_revision_counts_versions_both_approved_and_in_effect(app) {
+        use cutpoints::domain::Timestamp;
+        use cutpoints::store::versions::set_revision;
+        let team = Team::new(app).await;
+        // Step through invented future times so that every instant is known exactly.
+        let t1 = Timestamp::now().plus_seconds(86_400);
+        team.app.store.set_clock(Some(t1));
+        team.agree(hib(1.0, 2.0, 3.0, 4.0, "v1")).await;
+        let t2 = t1.plus_seconds(86_400);
+        team.app.store.set_clock(Some(t2));
+        let effective = t1.plus_seconds(10 * 86_400);
+        let mut body = hib(1.0, 2.5, 3.0, 4.0, "v2 later");
+        body["effective_from"] = json!(effective.to_string());
+        team.agree(body).await;
+        let mut conn = team.app.store.pool().acquire().await.unwrap();
+        let at = |t: Timestamp| t;
+        assert_eq!(set_revision(&mut conn, at(t1.plus_seconds(-1))).await.unwrap(), 0);
+        let (_, m) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}"), None).await;
+        let approved_at = m["version_in_force"]["approved_at"].as_str().unwrap().to_string();
+        let v1_at = Timestamp::parse(&approved_at).unwrap();
+        assert!(v1_at >= t1);
+        assert_eq!(set_revision(&mut conn, v1_at).await.unwrap(), 1);
+        // Version 2 is approved but not yet in effect: the set has not changed.
+        assert_eq!(set_revision(&mut conn, t2.plus_seconds(3600)).await.unwrap(), 1);
+        assert_eq!(m["scheduled_version"]["number"], 2);
+        assert_eq!(set_revision(&mut conn, effective).await.unwrap(), 2);
+        // Once the clock passes its effective time, version 2 is in force with no job run.
+        team.app.store.set_clock(Some(effective.plus_seconds(1)));
+        let (_, m) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}"), None).await;
+        assert_eq!(m["version_in_force"]["number"], 2);
+        assert_eq!(m["scheduled_version"], Value::Null);
+        team.app.store.set_clock(None);
+    }
 }

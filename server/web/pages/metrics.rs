@@ -163,6 +163,12 @@ pub async fn detail(
     ctx.insert("saved", &saved);
     ctx.insert("metric", &metric);
     ctx.insert("in_force", &in_force);
+    ctx.insert(
+        "in_force_cut_names",
+        &in_force
+            .map(|v| v.record.content.direction().cut_names().to_vec())
+            .unwrap_or_default(),
+    );
     ctx.insert("scheduled", &scheduled);
     ctx.insert("history", &history.iter().rev().collect::<Vec<_>>());
     ctx.insert("open", &open_view);
