@@ -30,6 +30,8 @@ pub const REASON_MAX: usize = 2_000;
 
 /// A new revision as submitted: the content plus an edit note, and optionally the hash of
 /// the revision it was written against (a stale one answers 409: someone saved in between).
+/// The content fields repeat [`ContentInput`]'s because serde cannot both flatten a struct
+/// and deny unknown fields.
 #[derive(Clone, Debug, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct RevisionInput {
@@ -410,36 +412,41 @@ fn still_needed(
     )
 }
 
-/// Records a refusal that auditors report, in a transaction of its own that commits.
-async fn record_refusal(
-    w: WriteTx,
+/// Lets a decision through its rule, or refuses it. Separation-of-duties refusals are
+/// recorded (as `action`) in the transaction, which then commits with nothing else in it.
+async fn passed(
+    mut w: WriteTx,
+    rule: workflow::Rule,
     by: &User,
     metric: &Metric,
     action: &str,
-    id: i64,
-    revision: i64,
-    reason: &str,
-) -> OpResult<()> {
-    let mut w = w;
-    w.record(
-        &actor_of(by),
-        action,
-        &metric.subject(),
-        json!({"proposal": id, "revision": revision, "reason": reason}),
-    )
-    .await?;
-    w.commit().await?;
-    Ok(())
+    bundle: &ProposalBundle,
+) -> OpResult<WriteTx> {
+    match rule {
+        Ok(()) => Ok(w),
+        Err(Refusal::SeparationOfDuties(reason)) => {
+            let payload = json!({
+                "proposal": bundle.proposal.id,
+                "revision": bundle.latest().number,
+                "reason": reason,
+            });
+            w.record(&actor_of(by), action, &metric.subject(), payload)
+                .await?;
+            w.commit().await?;
+            Err(OpError::Forbidden(reason))
+        }
+        Err(other) => Err(refusal(other)),
+    }
 }
 
-/// Approves the proposal and records its version when nothing more is needed. Returns the
-/// version number when it did.
+/// Approves the proposal and records its version when nothing more is needed; otherwise it
+/// stays in review.
 async fn approve_if_complete(
     w: &mut WriteTx,
     by: &User,
     id: i64,
     metric: &Metric,
-) -> OpResult<Option<i64>> {
+) -> OpResult<Outcome> {
     let bundle = records::bundle(w.conn(), id)
         .await?
         .expect("the proposal exists");
@@ -447,7 +454,10 @@ async fn approve_if_complete(
     let previous = versions::latest(w.conn(), metric.id).await?;
     let needed = still_needed(&bundle, required, previous.as_ref());
     if !needed.is_met() {
-        return Ok(None);
+        return Ok(Outcome {
+            state: ProposalState::InReview,
+            version: None,
+        });
     }
     let latest = bundle.latest();
     let now = w.now();
@@ -500,7 +510,10 @@ async fn approve_if_complete(
         }),
     )
     .await?;
-    Ok(Some(number))
+    Ok(Outcome {
+        state: ProposalState::Approved,
+        version: Some(number),
+    })
 }
 
 fn decision<'a>(bundle: &'a ProposalBundle, by: &User, given_hash: &'a str) -> Decision<'a> {
@@ -544,23 +557,8 @@ pub async fn review(
     let mut w = store.begin_write().await?;
     let (bundle, metric) = load(&mut w, id).await?;
     let d = decision(&bundle, by, revision_hash);
-    match workflow::may_give_verdict(rules_actor(by, &metric), verdict, &d) {
-        Ok(()) => {}
-        Err(Refusal::SeparationOfDuties(reason)) => {
-            record_refusal(
-                w,
-                by,
-                &metric,
-                "review.refused",
-                id,
-                bundle.latest().number,
-                &reason,
-            )
-            .await?;
-            return Err(OpError::Forbidden(reason));
-        }
-        Err(other) => return Err(refusal(other)),
-    }
+    let rule = workflow::may_give_verdict(rules_actor(by, &metric), verdict, &d);
+    let mut w = passed(w, rule, by, &metric, "review.refused", &bundle).await?;
     let latest = bundle.latest();
     records::insert_review(
         &mut w,
@@ -587,16 +585,7 @@ pub async fn review(
                 version: None,
             }
         }
-        Verdict::Approve => match approve_if_complete(&mut w, by, id, &metric).await? {
-            Some(n) => Outcome {
-                state: ProposalState::Approved,
-                version: Some(n),
-            },
-            None => Outcome {
-                state: ProposalState::InReview,
-                version: None,
-            },
-        },
+        Verdict::Approve => approve_if_complete(&mut w, by, id, &metric).await?,
     };
     w.commit().await?;
     Ok(outcome)
@@ -646,23 +635,8 @@ pub async fn sign_off(
     let d = decision(&bundle, by, revision_hash);
     let previous = versions::latest(w.conn(), metric.id).await?;
     let (_, reasons) = changes_and_reasons(&bundle, previous.as_ref());
-    match workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty()) {
-        Ok(()) => {}
-        Err(Refusal::SeparationOfDuties(reason)) => {
-            record_refusal(
-                w,
-                by,
-                &metric,
-                "signoff.refused",
-                id,
-                bundle.latest().number,
-                &reason,
-            )
-            .await?;
-            return Err(OpError::Forbidden(reason));
-        }
-        Err(other) => return Err(refusal(other)),
-    }
+    let rule = workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty());
+    let mut w = passed(w, rule, by, &metric, "signoff.refused", &bundle).await?;
     let latest = bundle.latest();
     records::insert_signoff(
         &mut w,
@@ -681,16 +655,7 @@ pub async fn sign_off(
         json!({"proposal": id, "revision": latest.number, "hash": latest.content_hash, "signer": by.display_name, "meaning": SIGNOFF_MEANING, "reasons": reasons}),
     )
     .await?;
-    let outcome = match approve_if_complete(&mut w, by, id, &metric).await? {
-        Some(n) => Outcome {
-            state: ProposalState::Approved,
-            version: Some(n),
-        },
-        None => Outcome {
-            state: ProposalState::InReview,
-            version: None,
-        },
-    };
+    let outcome = approve_if_complete(&mut w, by, id, &metric).await?;
     w.commit().await?;
     Ok(outcome)
 }

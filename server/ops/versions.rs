@@ -88,6 +88,30 @@ pub async fn history(store: &Store, metric: &Metric) -> OpResult<Vec<VersionView
         .collect())
 }
 
+/// A metric's thresholds as its page and API show them: every version, and every proposal
+/// (newest first).
+pub struct MetricThresholds {
+    pub history: Vec<VersionView>,
+    pub proposals: Vec<crate::store::proposals::ProposalRecord>,
+}
+
+impl MetricThresholds {
+    pub fn open_proposal(&self) -> Option<&crate::store::proposals::ProposalRecord> {
+        self.proposals.iter().find(|p| p.state.is_open())
+    }
+}
+
+pub async fn thresholds(store: &Store, metric: &Metric) -> OpResult<MetricThresholds> {
+    let history = history(store, metric).await?;
+    let mut conn = store
+        .pool()
+        .acquire()
+        .await
+        .map_err(crate::store::StoreError::from)?;
+    let proposals = crate::store::proposals::for_metric(&mut conn, metric.id).await?;
+    Ok(MetricThresholds { history, proposals })
+}
+
 /// The version in force now and the scheduled one after it, if any.
 pub fn current(history: &[VersionView]) -> (Option<&VersionView>, Option<&VersionView>) {
     let in_force = history.iter().find(|v| v.status == VersionStatus::InForce);

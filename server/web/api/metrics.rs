@@ -90,17 +90,9 @@ pub async fn show(
     KeyPath(key): KeyPath,
 ) -> Result<Response, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
-    let history = crate::ops::versions::history(&state.store, &metric).await?;
-    let (in_force, scheduled) = crate::ops::versions::current(&history);
-    let open = {
-        let mut conn = state
-            .store
-            .pool()
-            .acquire()
-            .await
-            .map_err(crate::store::StoreError::from)?;
-        crate::store::proposals::open_for_metric(&mut conn, metric.id).await?
-    };
+    let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
+    let (in_force, scheduled) = crate::ops::versions::current(&thresholds.history);
+    let open = thresholds.open_proposal();
     let mut body = json!(metric);
     body["version_in_force"] = json!(in_force);
     body["scheduled_version"] = json!(scheduled);

@@ -98,21 +98,12 @@ pub async fn detail(
         "edited" => Some("Your changes were saved."),
         _ => None,
     };
-    let history = crate::ops::versions::history(&state.store, &metric).await?;
-    let (in_force, scheduled) = crate::ops::versions::current(&history);
-    let (open, proposals) = {
-        let mut conn = state
-            .store
-            .pool()
-            .acquire()
-            .await
-            .map_err(crate::store::StoreError::from)?;
-        (
-            crate::store::proposals::open_for_metric(&mut conn, metric.id).await?,
-            crate::store::proposals::for_metric(&mut conn, metric.id).await?,
-        )
-    };
-    let open_view = match &open {
+    let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
+    let history = &thresholds.history;
+    let (in_force, scheduled) = crate::ops::versions::current(history);
+    let open = thresholds.open_proposal();
+    let proposals = &thresholds.proposals;
+    let open_view = match open {
         Some(p) => Some(crate::ops::proposals::get(&state.store, p.id).await?.0),
         None => None,
     };
