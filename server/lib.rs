@@ -8,10 +8,11 @@
 //! web      axum routes, pages, JSON errors
 //! ops      each action: permission, validation, store call (no HTTP)
 //! store    all SQL for both backends; each change and its event in one transaction
-//! engine   classification (pure)            auth   password hashing, secrets (pure)
+//! engine   classification, workflow rules (pure)   audit  hash chain (pure)   auth  passwords (pure)
 //! domain   validated types: metric key, direction, cut set, times, people
 //! ```
 
+pub mod audit;
 pub mod auth;
 pub mod cli;
 pub mod demo;

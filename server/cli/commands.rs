@@ -2,12 +2,13 @@
 
 use std::io::BufRead;
 use std::path::PathBuf;
+use std::process::ExitCode;
 
 use anyhow::{Context, bail};
 use axum::http::HeaderName;
 use tokio::net::TcpListener;
 
-use super::{Command, DemoArgs, PolicyCommand, ServeArgs, TokenCommand, UserCommand};
+use super::{AuditCommand, Command, DemoArgs, PolicyCommand, ServeArgs, TokenCommand, UserCommand};
 use crate::domain::Timestamp;
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
@@ -15,7 +16,12 @@ use crate::store::tokens::Scope;
 use crate::store::{Store, users};
 use crate::web::{AppState, WebConfig};
 
-pub async fn run(command: Command) -> anyhow::Result<()> {
+/// Runs a subcommand; a command that checks something (`audit verify`) may end with a code
+/// other than success without having failed to run.
+pub async fn run(command: Command) -> anyhow::Result<ExitCode> {
+    if let Command::Audit(cmd) = command {
+        return audit(cmd).await;
+    }
     match command {
         Command::Serve(args) => serve(args).await,
         Command::Demo(args) => demo(args).await,
@@ -28,8 +34,10 @@ pub async fn run(command: Command) -> anyhow::Result<()> {
         Command::User(cmd) => user(cmd).await,
         Command::Token(cmd) => token(cmd).await,
         Command::Policy(cmd) => policy(cmd).await,
+        Command::Audit(_) => unreachable!("handled above"),
         Command::Classify(_) => unreachable!("classify runs without the runtime"),
     }
+    .map(|()| ExitCode::SUCCESS)
 }
 
 /// Turns an operation's error into one line for the terminal, listing every field problem.
@@ -106,7 +114,11 @@ fn web_config(args: &ServeArgs) -> anyhow::Result<WebConfig> {
 
 async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     let config = web_config(&args)?;
-    let store = Store::open(&args.db.database_url).await?;
+    let store = if args.skip_migrations {
+        Store::open_migrated(&args.db.database_url).await?
+    } else {
+        Store::open(&args.db.database_url).await?
+    };
     if users::count(&store).await? == 0 {
         tracing::warn!(
             "no people yet: add the first admin with `cutpoints user add --username NAME --role admin --password-stdin`"
@@ -334,4 +346,36 @@ async fn policy(cmd: PolicyCommand) -> anyhow::Result<()> {
     let n = crate::store::policy::reviewers_required(&mut conn).await?;
     println!("reviewers_required = {n}");
     Ok(())
+}
+
+/// Reads `SEQ:HASH`.
+pub fn parse_known_head(text: &str) -> anyhow::Result<(i64, String)> {
+    let (seq, hash) = text
+        .split_once(':')
+        .with_context(|| format!("--known-head {text:?}: expected SEQ:HASH"))?;
+    let seq: i64 = seq
+        .trim()
+        .parse()
+        .with_context(|| format!("--known-head {text:?}: {seq:?} is not a sequence number"))?;
+    let hash = hash.trim().to_ascii_lowercase();
+    if hash.len() != 64 || !hash.bytes().all(|b| b.is_ascii_hexdigit()) {
+        bail!("--known-head {text:?}: the hash must be 64 hex characters");
+    }
+    Ok((seq, hash))
+}
+
+async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
+    let AuditCommand::Verify { known_head, db } = cmd;
+    let known = known_head.as_deref().map(parse_known_head).transpose()?;
+    let store = Store::open(&db.database_url).await?;
+    match crate::store::events::verify(&store, known).await? {
+        Ok((count, head)) => {
+            println!("ok {count} {head}");
+            Ok(ExitCode::SUCCESS)
+        }
+        Err(broken) => {
+            eprintln!("the event record does not verify: {broken}");
+            Ok(ExitCode::from(1))
+        }
+    }
 }

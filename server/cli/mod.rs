@@ -44,6 +44,10 @@ pub struct ServeArgs {
     /// throttling), e.g. X-Forwarded-For. Leave unset when clients connect directly.
     #[arg(long, env = "CUTPOINTS_FORWARDED_HEADER")]
     pub forwarded_header: Option<String>,
+    /// Do not apply migrations at start-up (the database role may not change the schema);
+    /// refuse to start if any are missing. See docs/postgres-app-role.sql.
+    #[arg(long, env = "CUTPOINTS_SKIP_MIGRATIONS")]
+    pub skip_migrations: bool,
 }
 
 #[derive(Args, Debug, Clone)]
@@ -71,6 +75,9 @@ pub enum Command {
     /// Manage API tokens.
     #[command(subcommand)]
     Token(TokenCommand),
+    /// Check the event record.
+    #[command(subcommand)]
+    Audit(AuditCommand),
     /// Change the approval policy (recorded in the event record).
     #[command(subcommand)]
     Policy(PolicyCommand),
@@ -130,6 +137,20 @@ pub enum UserCommand {
         username: String,
         #[arg(long, env = "CUTPOINTS_PASSWORD_STDIN", required = true)]
         password_stdin: bool,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+pub enum AuditCommand {
+    /// Recompute the hash chain; prints `ok EVENTS HEAD_HASH`, or names the first event that
+    /// does not match and exits 1.
+    Verify {
+        /// A head held from earlier (e.g. a published set's audit_head), as SEQ:HASH; the check
+        /// fails if the chain no longer contains it, which reveals a cut and re-forged tail.
+        #[arg(long, env = "CUTPOINTS_KNOWN_HEAD")]
+        known_head: Option<String>,
         #[command(flatten)]
         db: DatabaseArgs,
     },
@@ -206,7 +227,7 @@ pub fn run() -> ExitCode {
         }
     };
     match runtime.block_on(commands::run(cli.command)) {
-        Ok(()) => ExitCode::SUCCESS,
+        Ok(code) => code,
         Err(e) => {
             eprintln!("error: {e:#}");
             ExitCode::FAILURE

@@ -1,20 +1,14 @@
 //! The event record: one row per state change, appended in the transaction of the change,
 //! never updated or deleted (the database refuses both).
 //!
-//! Each event is the JSON object `{"seq","at","actor","action","subject","payload"}`; its hash
-//! is the hex SHA-256 of the previous event's hash (64 hex characters; 64 zeros before the
-//! first event) followed by the event's RFC 8785 canonical bytes.
+//! Each event is hash-linked to the one before; `crate::audit` states and checks the chain.
 
-use serde::Serialize;
 use serde_json::{Value, json};
-use sha2::{Digest, Sha256};
 use sqlx::{AnyConnection, Row};
 
 use super::StoreResult;
+pub use crate::audit::{Entry, Event, GENESIS_HASH, chain_hash};
 use crate::domain::Timestamp;
-
-/// The hash that precedes the first event.
-pub const GENESIS_HASH: &str = "0000000000000000000000000000000000000000000000000000000000000000";
 
 /// Who made a change: a person, the command line, or nobody known (a failed sign-in).
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -68,30 +62,6 @@ pub(super) async fn store_head(conn: &mut AnyConnection, head: &ChainHead) -> St
     Ok(())
 }
 
-/// The canonical bytes of an event (RFC 8785).
-pub fn canonical_event(event: &Event) -> Vec<u8> {
-    serde_json_canonicalizer::to_vec(event).expect("events are plain JSON")
-}
-
-/// `hex(SHA-256(prev_hash || JCS(event)))`.
-pub fn chain_hash(prev_hash: &str, event: &Event) -> String {
-    let mut hasher = Sha256::new();
-    hasher.update(prev_hash.as_bytes());
-    hasher.update(canonical_event(event));
-    hex::encode(hasher.finalize())
-}
-
-/// One event as it is hashed and exported.
-#[derive(Clone, Debug, PartialEq, Serialize)]
-pub struct Event {
-    pub seq: i64,
-    pub at: Timestamp,
-    pub actor: String,
-    pub action: String,
-    pub subject: String,
-    pub payload: Value,
-}
-
 pub(super) async fn append(
     conn: &mut AnyConnection,
     head: &mut ChainHead,
@@ -132,17 +102,9 @@ pub(super) async fn append(
     Ok(event.seq)
 }
 
-/// A stored event with its chain links.
-#[derive(Clone, Debug, Serialize)]
-pub struct StoredEvent {
-    pub event: Event,
-    pub prev_hash: String,
-    pub hash: String,
-}
-
-fn event_from_row(row: &sqlx::any::AnyRow) -> StoreResult<StoredEvent> {
+fn event_from_row(row: &sqlx::any::AnyRow) -> StoreResult<Entry> {
     let payload_text: String = row.try_get("payload")?;
-    Ok(StoredEvent {
+    Ok(Entry {
         event: Event {
             seq: row.try_get("seq")?,
             at: row.try_get("at")?,
@@ -156,23 +118,107 @@ fn event_from_row(row: &sqlx::any::AnyRow) -> StoreResult<StoredEvent> {
     })
 }
 
+/// Which events an extract holds. Empty strings match everything; times are a half-open
+/// range, `from` included and `to` excluded.
+#[derive(Clone, Debug, Default)]
+pub struct EventFilter {
+    pub after: i64,
+    pub limit: i64,
+    pub subject: String,
+    pub actor: String,
+    pub action: String,
+    pub from: Option<Timestamp>,
+    pub to: Option<Timestamp>,
+}
+
+/// Events in order of seq, as the filter asks.
+pub async fn select(conn: &mut AnyConnection, f: &EventFilter) -> StoreResult<Vec<Entry>> {
+    let rows = sqlx::query(
+        "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
+         WHERE seq > $1 AND ($2 = '' OR subject = $2) AND ($3 = '' OR actor = $3) \
+         AND ($4 = '' OR action = $4) AND ($5 = '' OR at >= $5) AND ($6 = '' OR at < $6) \
+         ORDER BY seq LIMIT $7",
+    )
+    .bind(f.after)
+    .bind(&f.subject)
+    .bind(&f.actor)
+    .bind(&f.action)
+    .bind(f.from.map(|t| t.to_string()).unwrap_or_default())
+    .bind(f.to.map(|t| t.to_string()).unwrap_or_default())
+    .bind(f.limit)
+    .fetch_all(&mut *conn)
+    .await?;
+    rows.iter().map(event_from_row).collect()
+}
+
 /// Events in order of `seq`, after `after`, at most `limit`, optionally for one subject.
 pub async fn list(
     store: &super::Store,
     after: i64,
     limit: i64,
     subject: Option<&str>,
-) -> StoreResult<Vec<StoredEvent>> {
-    let rows = sqlx::query(
-        "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
-         WHERE seq > $1 AND ($2 = '' OR subject = $2) ORDER BY seq LIMIT $3",
-    )
-    .bind(after)
-    .bind(subject.unwrap_or(""))
-    .bind(limit)
-    .fetch_all(store.pool())
-    .await?;
-    rows.iter().map(event_from_row).collect()
+) -> StoreResult<Vec<Entry>> {
+    let mut conn = store.pool().acquire().await?;
+    let filter = EventFilter {
+        after,
+        limit,
+        subject: subject.unwrap_or("").to_string(),
+        ..EventFilter::default()
+    };
+    select(&mut conn, &filter).await
+}
+
+/// The chain's head as recorded: (seq, hash).
+pub async fn head(conn: &mut AnyConnection) -> StoreResult<(i64, String)> {
+    let row = sqlx::query("SELECT seq, hash FROM chain_head WHERE id = 1")
+        .fetch_one(&mut *conn)
+        .await?;
+    Ok((row.try_get("seq")?, row.try_get("hash")?))
+}
+
+/// How many events `verify` reads at a time.
+const VERIFY_PAGE: i64 = 10_000;
+
+/// Recomputes the whole chain from the database, page by page, and compares its end with the
+/// recorded head (and with a head an auditor held earlier, if given). `Ok(Ok((events, head)))`
+/// when everything holds; `Ok(Err(break))` names the first event that does not.
+pub async fn verify(
+    store: &super::Store,
+    known_head: Option<(i64, String)>,
+) -> StoreResult<Result<(i64, String), crate::audit::Break>> {
+    let mut conn = store.pool().acquire().await?;
+    let mut verifier = crate::audit::Verifier::new(known_head);
+    let mut after = 0;
+    let mut last_seq = 0;
+    loop {
+        let page = select(
+            &mut conn,
+            &EventFilter {
+                after,
+                limit: VERIFY_PAGE,
+                ..EventFilter::default()
+            },
+        )
+        .await?;
+        for entry in &page {
+            if let Err(b) = verifier.push(entry) {
+                return Ok(Err(b));
+            }
+            last_seq = entry.event.seq;
+        }
+        match page.last() {
+            Some(e) if page.len() as i64 == VERIFY_PAGE => after = e.event.seq,
+            _ => break,
+        }
+    }
+    let (head_seq, head_hash) = head(&mut conn).await?;
+    let result = verifier.finish();
+    if let Ok((_, hash)) = &result
+        && (head_seq != last_seq || *hash != head_hash)
+    {
+        return Ok(Err(crate::audit::Break::Head { head_seq, last_seq }));
+    }
+    Ok(result)
 }
 
 /// Number of events with a given action (used by tests and the throttle summary).

@@ -155,13 +155,42 @@ impl Store {
         Ok(store)
     }
 
+    /// Opens without migrating, for a role that may not change the schema; refuses a database
+    /// whose migrations are not all applied.
+    pub async fn open_migrated(url: &str) -> StoreResult<Store> {
+        let store = Store::connect(url).await?;
+        let migrator = store.migrator();
+        let latest = migrator.iter().map(|m| m.version).max().unwrap_or(0);
+        let applied: Option<i64> = sqlx::query_scalar(
+            "SELECT MAX(version) FROM _sqlx_migrations WHERE success = TRUE",
+        )
+        .fetch_one(&store.pool)
+        .await
+        .map_err(|e| {
+            StoreError::Config(format!(
+                "cannot read the migrations table ({e}); run `cutpoints migrate` as the database owner"
+            ))
+        })?;
+        if applied.unwrap_or(0) < latest {
+            return Err(StoreError::Config(format!(
+                "the database schema is at migration {} but this cutpoints needs {latest}; run `cutpoints migrate` as the database owner",
+                applied.unwrap_or(0)
+            )));
+        }
+        Ok(store)
+    }
+
+    fn migrator(&self) -> &'static sqlx::migrate::Migrator {
+        match self.backend {
+            Backend::Sqlite => &SQLITE_MIGRATIONS,
+            Backend::Postgres => &POSTGRES_MIGRATIONS,
+        }
+    }
+
     /// Applies pending migrations on one dedicated connection (a failed migration must not
     /// leave an advisory lock behind on a pooled connection).
     pub async fn migrate(&self) -> StoreResult<()> {
-        let migrator = match self.backend {
-            Backend::Sqlite => &SQLITE_MIGRATIONS,
-            Backend::Postgres => &POSTGRES_MIGRATIONS,
-        };
+        let migrator = self.migrator();
         let mut conn = self.pool.acquire().await?;
         let result = migrator.run(&mut *conn).await;
         if result.is_err() {

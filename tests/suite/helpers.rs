@@ -162,7 +162,7 @@ impl TestApp {
     }
 
     /// Every event, in order.
-    pub async fn events(&self) -> Vec<events::StoredEvent> {
+    pub async fn events(&self) -> Vec<cutpoints::audit::Entry> {
         events::list(&self.store, 0, 1_000_000, None).await.unwrap()
     }
 

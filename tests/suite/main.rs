@@ -4,6 +4,8 @@
 mod helpers;
 
 mod accounts;
+mod audit_chain;
+mod audit_storage;
 mod bad_input;
 mod browser;
 mod cli;

@@ -1,0 +1,171 @@
+//! Each event is the JSON object `{"seq","at","actor","action","subject","payload"}`. Its hash
+//! is the lowercase hex of `SHA-256(prev_hash || JCS(event))`, where `prev_hash` is the previous
+//! event's hash as 64 ASCII hex characters (64 zeros before the first event) and JCS is the
+//! RFC 8785 canonical encoding.
+
+use std::fmt;
+
+use serde::Serialize;
+use serde_json::Value;
+use sha2::{Digest, Sha256};
+
+use crate::domain::Timestamp;
+
+/// The hash that precedes the first event.
+pub const GENESIS_HASH: &str = "0000000000000000000000000000000000000000000000000000000000000000";
+
+/// One event as it is hashed and exported.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Event {
+    pub seq: i64,
+    pub at: Timestamp,
+    pub actor: String,
+    pub action: String,
+    pub subject: String,
+    pub payload: Value,
+}
+
+/// An event with its links, as stored and exported: `{"event":{...},"prev_hash":"...","hash":"..."}`.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Entry {
+    pub event: Event,
+    pub prev_hash: String,
+    pub hash: String,
+}
+
+/// The RFC 8785 canonical bytes of an event.
+pub fn canonical_event(event: &Event) -> Vec<u8> {
+    serde_json_canonicalizer::to_vec(event).expect("events are plain JSON")
+}
+
+/// `hex(SHA-256(prev_hash || JCS(event)))`.
+pub fn chain_hash(prev_hash: &str, event: &Event) -> String {
+    let mut hasher = Sha256::new();
+    hasher.update(prev_hash.as_bytes());
+    hasher.update(canonical_event(event));
+    hex::encode(hasher.finalize())
+}
+
+/// The first place where a chain does not hold, named by the `seq` of the event there.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Break {
+    /// The event's seq is not the one after the previous event's (a row deleted, inserted or
+    /// moved).
+    Sequence { seq: i64, expected: i64 },
+    /// The event's `prev_hash` is not the previous event's hash.
+    Link { seq: i64 },
+    /// The event's content does not hash to its stored hash (it was changed).
+    Hash { seq: i64 },
+    /// The recorded head of the chain disagrees with the last event.
+    Head { head_seq: i64, last_seq: i64 },
+    /// A head an auditor held earlier is not in the chain (the tail was cut and re-forged).
+    KnownHead { seq: i64 },
+}
+
+impl Break {
+    /// The seq this break names.
+    pub fn seq(&self) -> i64 {
+        match self {
+            Break::Sequence { seq, .. } | Break::Link { seq } | Break::Hash { seq } => *seq,
+            Break::Head { head_seq, last_seq } => (*head_seq).max(*last_seq),
+            Break::KnownHead { seq } => *seq,
+        }
+    }
+}
+
+impl fmt::Display for Break {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Break::Sequence { seq, expected } => write!(
+                f,
+                "event seq {seq}: sequence does not match (expected seq {expected}); events are missing, inserted or moved"
+            ),
+            Break::Link { seq } => write!(
+                f,
+                "event seq {seq}: link does not match (its prev_hash is not the hash of the event before)"
+            ),
+            Break::Hash { seq } => write!(
+                f,
+                "event seq {seq}: hash does not match its content (the event was changed)"
+            ),
+            Break::Head { head_seq, last_seq } => write!(
+                f,
+                "event seq {}: the recorded head is seq {head_seq} but the last event is seq {last_seq}",
+                (*head_seq).max(*last_seq)
+            ),
+            Break::KnownHead { seq } => write!(
+                f,
+                "event seq {seq}: the head held earlier (seq {seq}) is not in the chain; the tail was cut or rewritten"
+            ),
+        }
+    }
+}
+
+/// Checks entries one at a time, in order of seq, so a long chain streams through in pages.
+#[derive(Clone, Debug)]
+pub struct Verifier {
+    next_seq: i64,
+    prev_hash: String,
+    count: i64,
+    /// A (seq, hash) an auditor held earlier, checked when its seq passes.
+    known: Option<(i64, String)>,
+    known_seen: bool,
+}
+
+impl Default for Verifier {
+    fn default() -> Self {
+        Verifier::new(None)
+    }
+}
+
+impl Verifier {
+    pub fn new(known_head: Option<(i64, String)>) -> Verifier {
+        Verifier {
+            next_seq: 1,
+            prev_hash: GENESIS_HASH.to_string(),
+            count: 0,
+            known: known_head,
+            known_seen: false,
+        }
+    }
+
+    /// Checks the next entry: its sequence, then its link, then its hash.
+    pub fn push(&mut self, entry: &Entry) -> Result<(), Break> {
+        let seq = entry.event.seq;
+        if seq != self.next_seq {
+            return Err(Break::Sequence {
+                seq,
+                expected: self.next_seq,
+            });
+        }
+        if entry.prev_hash != self.prev_hash {
+            return Err(Break::Link { seq });
+        }
+        if chain_hash(&self.prev_hash, &entry.event) != entry.hash {
+            return Err(Break::Hash { seq });
+        }
+        if let Some((known_seq, known_hash)) = &self.known
+            && *known_seq == seq
+        {
+            if *known_hash != entry.hash {
+                return Err(Break::KnownHead { seq });
+            }
+            self.known_seen = true;
+        }
+        self.next_seq = seq + 1;
+        self.prev_hash.clone_from(&entry.hash);
+        self.count += 1;
+        Ok(())
+    }
+
+    /// Ends the check: the number of events and the head hash, or the held head that was never
+    /// reached.
+    pub fn finish(self) -> Result<(i64, String), Break> {
+        if let Some((seq, _)) = &self.known
+            && !self.known_seen
+        {
+            return Err(Break::KnownHead { seq: *seq });
+        }
+        Ok((self.count, self.prev_hash))
+    }
+}

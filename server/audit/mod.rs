@@ -1,0 +1,7 @@
+//! The event record's hash chain, as pure functions: the canonical encoding of an event, its
+//! chain hash, and verification of a sequence of stored entries. `docs/audit-chain.md` states
+//! the construction so anyone can re-verify an export with their own tools.
+
+pub mod chain;
+
+pub use chain::{Break, Entry, Event, GENESIS_HASH, Verifier, canonical_event, chain_hash};
