@@ -169,3 +169,16 @@ impl Verifier {
         Ok((self.count, self.prev_hash))
     }
 }
+
+/// Reads a head held from earlier, written `SEQ:HASH` (as the verify output and published
+/// sets give it).
+pub fn parse_known_head(text: &str) -> Result<(i64, String), String> {
+    let bad = || format!("{text:?}: expected SEQ:HASH with a 64-hex-character hash");
+    let (seq, hash) = text.trim().split_once(':').ok_or_else(bad)?;
+    let seq: i64 = seq.trim().parse().map_err(|_| bad())?;
+    let hash = hash.trim().to_ascii_lowercase();
+    if hash.len() != 64 || !hash.bytes().all(|b| b.is_ascii_hexdigit()) {
+        return Err(bad());
+    }
+    Ok((seq, hash))
+}

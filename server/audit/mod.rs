@@ -4,4 +4,6 @@
 
 pub mod chain;
 
-pub use chain::{Break, Entry, Event, GENESIS_HASH, Verifier, canonical_event, chain_hash};
+pub use chain::{
+    Break, Entry, Event, GENESIS_HASH, Verifier, canonical_event, chain_hash, parse_known_head,
+};

@@ -348,25 +348,13 @@ async fn policy(cmd: PolicyCommand) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// Reads `SEQ:HASH`.
-pub fn parse_known_head(text: &str) -> anyhow::Result<(i64, String)> {
-    let (seq, hash) = text
-        .split_once(':')
-        .with_context(|| format!("--known-head {text:?}: expected SEQ:HASH"))?;
-    let seq: i64 = seq
-        .trim()
-        .parse()
-        .with_context(|| format!("--known-head {text:?}: {seq:?} is not a sequence number"))?;
-    let hash = hash.trim().to_ascii_lowercase();
-    if hash.len() != 64 || !hash.bytes().all(|b| b.is_ascii_hexdigit()) {
-        bail!("--known-head {text:?}: the hash must be 64 hex characters");
-    }
-    Ok((seq, hash))
-}
-
 async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
     let AuditCommand::Verify { known_head, db } = cmd;
-    let known = known_head.as_deref().map(parse_known_head).transpose()?;
+    let known = known_head
+        .as_deref()
+        .map(crate::audit::parse_known_head)
+        .transpose()
+        .map_err(|e| anyhow::anyhow!("--known-head {e}"))?;
     let store = Store::open(&db.database_url).await?;
     match crate::store::events::verify(&store, known).await? {
         Ok((count, head)) => {

@@ -157,6 +157,12 @@ fn api_routes(config: &WebConfig) -> Router<AppState> {
         .route("/v1/proposals/{id}/withdraw", post(p::withdraw))
         .route("/v1/proposals/{id}/reject", post(p::reject))
         .route("/v1/inbox", get(p::inbox))
+        .route("/v1/audit", get(api::audit::events))
+        .route("/v1/audit.csv", get(api::audit::events_csv))
+        .route("/v1/audit/verify", get(api::audit::verify))
+        .route("/v1/audit/exceptions", get(api::audit::exceptions))
+        .route("/v1/audit/as-of", get(api::audit::as_of))
+        .route("/v1/audit/metrics/{key}", get(api::audit::timeline))
         .fallback(api::not_found)
         .method_not_allowed_fallback(api::method_not_allowed)
         .layer(DefaultBodyLimit::max(config.body_limit))
@@ -176,6 +182,11 @@ fn page_routes() -> Router<AppState> {
             get(metrics::edit_form).post(metrics::edit),
         )
         .route("/inbox", get(proposals::inbox))
+        .route("/audit", get(pages::audit::index))
+        .route("/audit/metrics/{key}", get(pages::audit::timeline))
+        .route("/audit/as-of", get(pages::audit::as_of))
+        .route("/audit/exceptions", get(pages::audit::exceptions))
+        .route("/audit/events", get(pages::audit::events))
         .route(
             "/metrics/{key}/proposals/new",
             get(proposals::new_form).post(proposals::create),

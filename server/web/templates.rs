@@ -26,6 +26,11 @@ const TEMPLATES: &[(&str, &str)] = embed![
     "proposal.html",
     "proposal_form.html",
     "inbox.html",
+    "audit_index.html",
+    "audit_timeline.html",
+    "audit_as_of.html",
+    "audit_exceptions.html",
+    "audit_events.html",
 ];
 
 /// The style sheet, served at `/static/style.css`.

@@ -6,6 +6,7 @@ mod helpers;
 mod accounts;
 mod audit_chain;
 mod audit_storage;
+mod audit_views;
 mod bad_input;
 mod browser;
 mod cli;

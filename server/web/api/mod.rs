@@ -1,5 +1,6 @@
 //! The JSON API under `/api/v1`.
 
+pub mod audit;
 pub mod classify;
 pub mod metrics;
 pub mod proposals;

@@ -2,6 +2,7 @@
 //! back to the same place and are re-shown with a message beside each field that failed.
 
 pub mod admin;
+pub mod audit;
 pub mod metrics;
 pub mod proposals;
 pub mod signin;
@@ -37,6 +38,7 @@ pub fn base_context(session: Option<&Session>, title: &str, section: &str) -> Co
                     "display_name": s.user.display_name,
                     "roles": s.user.roles.iter().map(Role::as_str).collect::<Vec<_>>(),
                     "is_admin": s.user.roles.has(Role::Admin),
+                    "is_auditor": s.user.roles.has(Role::Auditor) || s.user.roles.has(Role::Admin),
                 }),
             );
             ctx.insert("csrf", &s.csrf_token);

@@ -1,0 +1,246 @@
+//! `/api/v1/audit...`: the auditor's views as JSON, and the event record as JSON and CSV.
+
+use axum::Json;
+use axum::extract::State;
+use axum::http::{HeaderMap, HeaderName, HeaderValue, header};
+use axum::response::{IntoResponse, Response};
+use serde::Deserialize;
+
+use super::metrics::KeyPath;
+use crate::domain::{MetricKey, Timestamp};
+use crate::ops::audit::{self, Extract};
+use crate::store::events::EventFilter;
+use crate::web::AppState;
+use crate::web::auth::ApiCaller;
+use crate::web::error::ApiError;
+use crate::web::extract::ApiQuery;
+
+/// Filters of an extract, as query parameters.
+#[derive(Deserialize, Default, Clone)]
+#[serde(default, deny_unknown_fields)]
+pub struct ExtractQuery {
+    pub after: Option<i64>,
+    pub limit: Option<i64>,
+    pub metric: String,
+    pub actor: String,
+    pub action: String,
+    pub from: String,
+    pub to: String,
+}
+
+fn time_param(name: &str, text: &str) -> Result<Option<Timestamp>, ApiError> {
+    if text.trim().is_empty() {
+        return Ok(None);
+    }
+    Timestamp::parse(text)
+        .map(Some)
+        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
+}
+
+impl ExtractQuery {
+    pub fn filter(&self, default_limit: i64) -> Result<EventFilter, ApiError> {
+        let subject = if self.metric.trim().is_empty() {
+            String::new()
+        } else {
+            let key = MetricKey::parse(self.metric.trim())
+                .map_err(|e| ApiError::bad_request(format!("metric: {e}")))?;
+            crate::store::metrics::subject(key.as_str())
+        };
+        let limit = self.limit.unwrap_or(default_limit);
+        if !(1..=audit::EXTRACT_LIMIT_MAX).contains(&limit) {
+            return Err(ApiError::bad_request(format!(
+                "limit must be from 1 to {}",
+                audit::EXTRACT_LIMIT_MAX
+            )));
+        }
+        Ok(EventFilter {
+            after: self.after.unwrap_or(0).max(0),
+            limit,
+            subject,
+            actor: self.actor.trim().to_string(),
+            action: self.action.trim().to_string(),
+            from: time_param("from", &self.from)?,
+            to: time_param("to", &self.to)?,
+        })
+    }
+}
+
+/// `GET /api/v1/audit`: a page of events with a summary for checking completeness.
+pub async fn events(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    ApiQuery(q): ApiQuery<ExtractQuery>,
+) -> Result<Json<Extract>, ApiError> {
+    let filter = q.filter(1_000)?;
+    Ok(Json(
+        audit::extract(&state.store, caller.user(), &filter).await?,
+    ))
+}
+
+/// The extract's summary in response headers (for the CSV, whose body holds only records).
+fn summary_headers(x: &Extract) -> HeaderMap {
+    let mut h = HeaderMap::new();
+    let mut put = |name: &'static str, value: String| {
+        h.insert(
+            HeaderName::from_static(name),
+            HeaderValue::from_str(&value).expect("numbers and hex"),
+        );
+    };
+    let s = &x.summary;
+    put("cutpoints-audit-count", s.count.to_string());
+    put(
+        "cutpoints-audit-first-seq",
+        s.first_seq.map(|v| v.to_string()).unwrap_or_default(),
+    );
+    put(
+        "cutpoints-audit-last-seq",
+        s.last_seq.map(|v| v.to_string()).unwrap_or_default(),
+    );
+    put(
+        "cutpoints-audit-head",
+        format!("{}:{}", s.head_seq, s.head_hash),
+    );
+    if let Some(next) = s.next_after {
+        put("cutpoints-audit-next-after", next.to_string());
+    }
+    h
+}
+
+/// The extract as RFC 4180 CSV: a header row, one record per event (CRLF line ends, fields
+/// with commas, quotes or line breaks quoted), and a last record summarising the extract.
+pub fn extract_csv(x: &Extract) -> Vec<u8> {
+    let mut w = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::CRLF)
+        .from_writer(Vec::new());
+    let header = [
+        "seq",
+        "at",
+        "actor",
+        "action",
+        "subject",
+        "payload",
+        "prev_hash",
+        "hash",
+    ];
+    w.write_record(header).expect("writing to memory");
+    for e in &x.entries {
+        let payload = serde_json_canonicalizer::to_string(&e.event.payload).expect("plain JSON");
+        w.write_record([
+            e.event.seq.to_string().as_str(),
+            &e.event.at.to_string(),
+            &e.event.actor,
+            &e.event.action,
+            &e.event.subject,
+            &payload,
+            &e.prev_hash,
+            &e.hash,
+        ])
+        .expect("writing to memory");
+    }
+    let s = &x.summary;
+    let summary = format!(
+        "count={} first_seq={} last_seq={} head_seq={} head_hash={}",
+        s.count,
+        s.first_seq.map(|v| v.to_string()).unwrap_or_default(),
+        s.last_seq.map(|v| v.to_string()).unwrap_or_default(),
+        s.head_seq,
+        s.head_hash
+    );
+    w.write_record(["summary", "", "", "", "", &summary, "", ""])
+        .expect("writing to memory");
+    w.into_inner().expect("flushing to memory")
+}
+
+/// `GET /api/v1/audit.csv`.
+pub async fn events_csv(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    ApiQuery(q): ApiQuery<ExtractQuery>,
+) -> Result<Response, ApiError> {
+    let filter = q.filter(audit::EXTRACT_LIMIT_MAX)?;
+    let x = audit::extract(&state.store, caller.user(), &filter).await?;
+    let mut headers = summary_headers(&x);
+    headers.insert(
+        header::CONTENT_TYPE,
+        HeaderValue::from_static("text/csv; charset=utf-8; header=present"),
+    );
+    headers.insert(
+        header::CONTENT_DISPOSITION,
+        HeaderValue::from_static("attachment; filename=\"cutpoints-events.csv\""),
+    );
+    Ok((headers, extract_csv(&x)).into_response())
+}
+
+#[derive(Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
+pub struct VerifyQuery {
+    pub known_head: String,
+}
+
+fn known_head(text: &str) -> Result<Option<(i64, String)>, ApiError> {
+    if text.trim().is_empty() {
+        return Ok(None);
+    }
+    crate::audit::parse_known_head(text)
+        .map(Some)
+        .map_err(|e| ApiError::bad_request(format!("known_head {e}")))
+}
+
+/// `GET /api/v1/audit/verify[?known_head=SEQ:HASH]`.
+pub async fn verify(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    ApiQuery(q): ApiQuery<VerifyQuery>,
+) -> Result<Response, ApiError> {
+    let known = known_head(&q.known_head)?;
+    Ok(Json(audit::verify(&state.store, caller.user(), known).await?).into_response())
+}
+
+/// `GET /api/v1/audit/exceptions`.
+pub async fn exceptions(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+) -> Result<Response, ApiError> {
+    Ok(Json(audit::exceptions(&state.store, caller.user()).await?).into_response())
+}
+
+/// `GET /api/v1/audit/metrics/{key}`: why did it move.
+pub async fn timeline(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    KeyPath(key): KeyPath,
+) -> Result<Response, ApiError> {
+    Ok(Json(audit::timeline(&state.store, caller.user(), key.as_str()).await?).into_response())
+}
+
+#[derive(Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
+pub struct AsOfQuery {
+    pub as_of: String,
+    pub known_at: String,
+    pub metric: String,
+}
+
+/// `GET /api/v1/audit/as-of?as_of=T&known_at=R[&metric=KEY]`.
+pub async fn as_of(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+    ApiQuery(q): ApiQuery<AsOfQuery>,
+) -> Result<Response, ApiError> {
+    let as_of = time_param("as_of", &q.as_of)?;
+    let known_at = time_param("known_at", &q.known_at)?;
+    let key = if q.metric.trim().is_empty() {
+        None
+    } else {
+        Some(MetricKey::parse(q.metric.trim()).map_err(|e| ApiError::bad_request(e.to_string()))?)
+    };
+    let view = audit::as_of(
+        &state.store,
+        caller.user(),
+        as_of,
+        known_at,
+        key.as_ref().map(|k| k.as_str()),
+    )
+    .await?;
+    Ok(Json(view).into_response())
+}
