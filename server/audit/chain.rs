@@ -33,9 +33,101 @@ pub struct Entry {
     pub hash: String,
 }
 
+/// An event's fields as stored: the payload already in its canonical (RFC 8785) text. The
+/// chain is checked from these without parsing any JSON.
+#[derive(Clone, Copy, Debug)]
+pub struct EventParts<'a> {
+    pub seq: i64,
+    pub at: &'a str,
+    pub actor: &'a str,
+    pub action: &'a str,
+    pub subject: &'a str,
+    pub payload_jcs: &'a str,
+}
+
+/// Writes a JSON string as RFC 8785 §3.2.2.2 requires: only `"`, `\` and control characters
+/// are escaped (the short forms where JSON has them, else `\u00xx` in lower case).
+fn write_jcs_string(s: &str, out: &mut Vec<u8>) {
+    out.push(b'"');
+    let bytes = s.as_bytes();
+    let mut start = 0;
+    for (i, &b) in bytes.iter().enumerate() {
+        let escape: &[u8] = match b {
+            b'"' => b"\\\"",
+            b'\\' => b"\\\\",
+            b'\n' => b"\\n",
+            b'\r' => b"\\r",
+            b'\t' => b"\\t",
+            0x08 => b"\\b",
+            0x0c => b"\\f",
+            0..=0x1f => {
+                out.extend_from_slice(&bytes[start..i]);
+                out.extend_from_slice(format!("\\u{b:04x}").as_bytes());
+                start = i + 1;
+                continue;
+            }
+            _ => continue,
+        };
+        out.extend_from_slice(&bytes[start..i]);
+        out.extend_from_slice(escape);
+        start = i + 1;
+    }
+    out.extend_from_slice(&bytes[start..]);
+    out.push(b'"');
+}
+
+/// The RFC 8785 canonical bytes of an event from its stored parts. The members are written in
+/// JCS order (their names are ASCII, so UTF-16 order is byte order): action, actor, at,
+/// payload, seq, subject.
+pub fn canonical_parts(p: &EventParts<'_>, out: &mut Vec<u8>) {
+    out.extend_from_slice(b"{\"action\":");
+    write_jcs_string(p.action, out);
+    out.extend_from_slice(b",\"actor\":");
+    write_jcs_string(p.actor, out);
+    out.extend_from_slice(b",\"at\":");
+    write_jcs_string(p.at, out);
+    out.extend_from_slice(b",\"payload\":");
+    out.extend_from_slice(p.payload_jcs.as_bytes());
+    out.extend_from_slice(b",\"seq\":");
+    out.extend_from_slice(p.seq.to_string().as_bytes());
+    out.extend_from_slice(b",\"subject\":");
+    write_jcs_string(p.subject, out);
+    out.push(b'}');
+}
+
+/// `hex(SHA-256(prev_hash || JCS(event)))` from stored parts; `buffer` is reused between calls.
+pub fn chain_hash_parts(prev_hash: &str, p: &EventParts<'_>, buffer: &mut Vec<u8>) -> String {
+    buffer.clear();
+    canonical_parts(p, buffer);
+    let mut hasher = Sha256::new();
+    hasher.update(prev_hash.as_bytes());
+    hasher.update(&buffer[..]);
+    hex::encode(hasher.finalize())
+}
+
+/// The RFC 8785 canonical text of a payload.
+pub fn canonical_payload(payload: &Value) -> String {
+    serde_json_canonicalizer::to_string(payload).expect("payloads are plain JSON")
+}
+
 /// The RFC 8785 canonical bytes of an event.
 pub fn canonical_event(event: &Event) -> Vec<u8> {
-    serde_json_canonicalizer::to_vec(event).expect("events are plain JSON")
+    let payload = canonical_payload(&event.payload);
+    let at = event.at.to_string();
+    let mut out = Vec::with_capacity(128 + payload.len());
+    canonical_parts(&event_parts(event, &at, &payload), &mut out);
+    out
+}
+
+fn event_parts<'a>(event: &'a Event, at: &'a str, payload_jcs: &'a str) -> EventParts<'a> {
+    EventParts {
+        seq: event.seq,
+        at,
+        actor: &event.actor,
+        action: &event.action,
+        subject: &event.subject,
+        payload_jcs,
+    }
 }
 
 /// `hex(SHA-256(prev_hash || JCS(event)))`.
@@ -110,6 +202,8 @@ pub struct Verifier {
     /// A (seq, hash) an auditor held earlier, checked when its seq passes.
     known: Option<(i64, String)>,
     known_seen: bool,
+    /// Reused for each event's canonical bytes.
+    buffer: Vec<u8>,
 }
 
 impl Default for Verifier {
@@ -126,34 +220,49 @@ impl Verifier {
             count: 0,
             known: known_head,
             known_seen: false,
+            buffer: Vec::with_capacity(1024),
         }
     }
 
     /// Checks the next entry: its sequence, then its link, then its hash.
     pub fn push(&mut self, entry: &Entry) -> Result<(), Break> {
-        let seq = entry.event.seq;
+        let payload = canonical_payload(&entry.event.payload);
+        let at = entry.event.at.to_string();
+        let parts = event_parts(&entry.event, &at, &payload);
+        self.push_parts(&parts, &entry.prev_hash, &entry.hash)
+    }
+
+    /// Checks the next event from its stored parts (the fast path: no JSON is parsed).
+    pub fn push_parts(
+        &mut self,
+        parts: &EventParts<'_>,
+        prev_hash: &str,
+        hash: &str,
+    ) -> Result<(), Break> {
+        let seq = parts.seq;
         if seq != self.next_seq {
             return Err(Break::Sequence {
                 seq,
                 expected: self.next_seq,
             });
         }
-        if entry.prev_hash != self.prev_hash {
+        if prev_hash != self.prev_hash {
             return Err(Break::Link { seq });
         }
-        if chain_hash(&self.prev_hash, &entry.event) != entry.hash {
+        if chain_hash_parts(&self.prev_hash, parts, &mut self.buffer) != hash {
             return Err(Break::Hash { seq });
         }
         if let Some((known_seq, known_hash)) = &self.known
             && *known_seq == seq
         {
-            if *known_hash != entry.hash {
+            if known_hash != hash {
                 return Err(Break::KnownHead { seq });
             }
             self.known_seen = true;
         }
         self.next_seq = seq + 1;
-        self.prev_hash.clone_from(&entry.hash);
+        self.prev_hash.clear();
+        self.prev_hash.push_str(hash);
         self.count += 1;
         Ok(())
     }

@@ -5,5 +5,6 @@
 pub mod chain;
 
 pub use chain::{
-    Break, Entry, Event, GENESIS_HASH, Verifier, canonical_event, chain_hash, parse_known_head,
+    Break, Entry, Event, EventParts, GENESIS_HASH, Verifier, canonical_event, canonical_parts,
+    canonical_payload, chain_hash, chain_hash_parts, parse_known_head,
 };

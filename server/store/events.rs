@@ -79,9 +79,18 @@ pub(super) async fn append(
         subject: subject.to_string(),
         payload,
     };
-    let hash = chain_hash(&head.hash, &event);
-    let payload_text =
-        serde_json_canonicalizer::to_string(&event.payload).expect("payloads are plain JSON");
+    // The payload is stored as its canonical text, which is also what the hash covers.
+    let payload_text = crate::audit::canonical_payload(&event.payload);
+    let at_text = at.to_string();
+    let parts = crate::audit::EventParts {
+        seq: event.seq,
+        at: &at_text,
+        actor: &event.actor,
+        action: &event.action,
+        subject: &event.subject,
+        payload_jcs: &payload_text,
+    };
+    let hash = crate::audit::chain_hash_parts(&head.hash, &parts, &mut Vec::new());
     sqlx::query(
         "INSERT INTO events (seq, at, actor, action, subject, payload, prev_hash, hash) \
          VALUES ($1, $2, $3, $4, $5, $6, $7, $8)",
@@ -191,24 +200,41 @@ pub async fn verify(
     let mut after = 0;
     let mut last_seq = 0;
     loop {
-        let page = select(
-            &mut conn,
-            &EventFilter {
-                after,
-                limit: VERIFY_PAGE,
-                ..EventFilter::default()
-            },
+        // The stored text as it is: the payload is already canonical, so nothing is parsed.
+        let rows = sqlx::query(
+            "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
+             WHERE seq > $1 ORDER BY seq LIMIT $2",
         )
+        .bind(after)
+        .bind(VERIFY_PAGE)
+        .fetch_all(&mut *conn)
         .await?;
-        for entry in &page {
-            if let Err(b) = verifier.push(entry) {
+        for row in &rows {
+            let seq: i64 = row.try_get("seq")?;
+            let at: String = row.try_get("at")?;
+            let actor: String = row.try_get("actor")?;
+            let action: String = row.try_get("action")?;
+            let subject: String = row.try_get("subject")?;
+            let payload: String = row.try_get("payload")?;
+            let prev_hash: String = row.try_get("prev_hash")?;
+            let hash: String = row.try_get("hash")?;
+            let parts = crate::audit::EventParts {
+                seq,
+                at: &at,
+                actor: &actor,
+                action: &action,
+                subject: &subject,
+                payload_jcs: &payload,
+            };
+            if let Err(b) = verifier.push_parts(&parts, &prev_hash, &hash) {
                 return Ok(Err(b));
             }
-            last_seq = entry.event.seq;
+            last_seq = seq;
         }
-        match page.last() {
-            Some(e) if page.len() as i64 == VERIFY_PAGE => after = e.event.seq,
-            _ => break,
+        if rows.len() as i64 == VERIFY_PAGE {
+            after = last_seq;
+        } else {
+            break;
         }
     }
     let (head_seq, head_hash) = head(&mut conn).await?;

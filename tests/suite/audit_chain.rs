@@ -320,3 +320,31 @@ on_both_backends! {
         }
     }
 }
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(500))]
+
+    /// The fast encoder (stored parts, no JSON parsing) writes exactly what the RFC 8785
+    /// library writes for the same event, whatever the text holds.
+    #[test]
+    fn the_fast_canonical_encoder_agrees_with_the_rfc_8785_library(
+        // JCS writes numbers as doubles; sequence numbers stay far below 2^53.
+        seq in 1i64..(1i64 << 53),
+        actor in "\\PC*|[\\x00-\\x1f\"\\\\]{0,8}",
+        action in "[a-z._]{1,30}",
+        subject in "\\PC{0,40}",
+        text in "\\PC{0,60}|[\\x00-\\x1f\\u{7f}\\u{2028}\"\\\\/]{0,12}",
+        number in proptest::num::f64::NORMAL,
+    ) {
+        let e = Event {
+            seq,
+            at: Timestamp::parse("2026-03-01T09:30:00.123456Z").unwrap(),
+            actor,
+            action,
+            subject,
+            payload: json!({"text": text, "n": number, "list": [1, null, true], "nested": {"z": 1, "a": text}}),
+        };
+        let reference = serde_json_canonicalizer::to_vec(&e).unwrap();
+        proptest::prop_assert_eq!(canonical_event(&e), reference);
+    }
+}
