@@ -97,6 +97,8 @@ pub struct VersionBrief {
     pub number: i64,
     pub direction: &'static str,
     pub cuts: std::collections::BTreeMap<&'static str, f64>,
+    /// The cuts in their order, as words: "critical 50, intervene 70, ...".
+    pub cuts_text: String,
     pub effective_from: Timestamp,
     pub approved_at: Timestamp,
     pub approvers: Vec<String>,
@@ -108,6 +110,14 @@ fn brief(v: &VersionRecord) -> VersionBrief {
         number: v.number,
         direction: v.content.direction().as_str(),
         cuts: crate::domain::proposal::cuts_object(&v.content.cuts),
+        cuts_text: v
+            .content
+            .cuts
+            .named()
+            .iter()
+            .map(|(name, value)| format!("{name} {}", crate::domain::number::format(*value)))
+            .collect::<Vec<_>>()
+            .join(", "),
         effective_from: v.effective_from,
         approved_at: v.approved_at,
         approvers: v.approvers.clone(),
