@@ -7,6 +7,7 @@
 //! cli      clap commands
 //! web      axum routes, pages, JSON errors
 //! ops      each action: permission, validation, store call (no HTTP)
+//! publish  the published set: bytes, digest, signature, cache
 //! store    all SQL for both backends; each change and its event in one transaction
 //! engine   classification, workflow rules (pure)   audit  hash chain (pure)   auth  passwords (pure)
 //! domain   validated types: metric key, direction, cut set, times, people
@@ -19,6 +20,7 @@ pub mod demo;
 pub mod domain;
 pub mod engine;
 pub mod ops;
+pub mod publish;
 pub mod store;
 pub mod web;
 

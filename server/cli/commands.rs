@@ -8,7 +8,10 @@ use anyhow::{Context, bail};
 use axum::http::HeaderName;
 use tokio::net::TcpListener;
 
-use super::{AuditCommand, Command, DemoArgs, PolicyCommand, ServeArgs, TokenCommand, UserCommand};
+use super::{
+    AuditCommand, Command, DemoArgs, ExportArgs, KeysCommand, PolicyCommand, ServeArgs,
+    TokenCommand, UserCommand,
+};
 use crate::domain::Timestamp;
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
@@ -34,6 +37,8 @@ pub async fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::User(cmd) => user(cmd).await,
         Command::Token(cmd) => token(cmd).await,
         Command::Policy(cmd) => policy(cmd).await,
+        Command::Export(args) => export(args).await,
+        Command::Keys(cmd) => keys(cmd).await,
         Command::Audit(_) => unreachable!("handled above"),
         Command::Classify(_) => unreachable!("classify runs without the runtime"),
     }
@@ -108,6 +113,7 @@ fn web_config(args: &ServeArgs) -> anyhow::Result<WebConfig> {
     Ok(WebConfig {
         secure_cookies: args.secure_cookies,
         forwarded_header,
+        public_read: args.public_read,
         ..WebConfig::default()
     })
 }
@@ -124,13 +130,20 @@ async fn serve(args: ServeArgs) -> anyhow::Result<()> {
             "no people yet: add the first admin with `cutpoints user add --username NAME --role admin --password-stdin`"
         );
     }
+    let signer = crate::publish::signing::load_or_create(&store, &args.key.signing_key).await?;
     let listener = bind(&args.bind).await?;
     tracing::info!(
         address = %listener.local_addr()?,
         database = store.backend().name(),
+        key_id = signer.key_id(),
         "cutpoints is serving"
     );
-    crate::web::serve(listener, AppState::new(store, config), shutdown_signal()).await?;
+    crate::web::serve(
+        listener,
+        AppState::new(store, config, signer),
+        shutdown_signal(),
+    )
+    .await?;
     Ok(())
 }
 
@@ -153,9 +166,10 @@ fn demo_folder() -> anyhow::Result<PathBuf> {
 }
 
 async fn demo(args: DemoArgs) -> anyhow::Result<()> {
+    let folder = demo_folder()?;
     let url = match &args.database_url {
         Some(url) => url.clone(),
-        None => format!("sqlite://{}", demo_folder()?.join("demo.db").display()),
+        None => format!("sqlite://{}", folder.join("demo.db").display()),
     };
     let store = Store::open(&url).await?;
     if store.holds_data().await? {
@@ -164,6 +178,8 @@ async fn demo(args: DemoArgs) -> anyhow::Result<()> {
         );
     }
     crate::demo::seed(&store).await.map_err(explain)?;
+    let signer =
+        crate::publish::signing::load_or_create(&store, &folder.join("signing.key")).await?;
     let listener = bind(&args.bind).await?;
     let addr = listener.local_addr()?;
     println!("cutpoints demo: Quillfield Cycle Commons, an invented bike-share cooperative");
@@ -187,7 +203,7 @@ async fn demo(args: DemoArgs) -> anyhow::Result<()> {
     println!("Press Ctrl-C to stop.");
     crate::web::serve(
         listener,
-        AppState::new(store, WebConfig::default()),
+        AppState::new(store, WebConfig::default(), signer),
         shutdown_signal(),
     )
     .await?;
@@ -366,4 +382,55 @@ async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
             Ok(ExitCode::from(1))
         }
     }
+}
+
+async fn export(args: ExportArgs) -> anyhow::Result<()> {
+    let time = |name: &str, text: &Option<String>| -> anyhow::Result<Option<Timestamp>> {
+        text.as_deref()
+            .map(|t| Timestamp::parse(t).map_err(|e| anyhow::anyhow!("--{name}: {e}")))
+            .transpose()
+    };
+    let as_of = time("as-of", &args.as_of)?;
+    let known_at = time("known-at", &args.known_at)?;
+    let store = Store::open(&args.db.database_url).await?;
+    let signer = crate::publish::signing::load_or_create(&store, &args.key.signing_key).await?;
+    let publisher = crate::publish::Publisher::new(signer);
+    let rendered = publisher.at(&store, as_of, known_at, None).await?;
+    let bytes = if args.format == "csv" {
+        &rendered.csv
+    } else {
+        &rendered.json
+    };
+    use std::io::Write;
+    std::io::stdout().write_all(bytes)?;
+    Ok(())
+}
+
+async fn keys(cmd: KeysCommand) -> anyhow::Result<()> {
+    match cmd {
+        KeysCommand::Rotate { key, db } => {
+            let store = Store::open(&db.database_url).await?;
+            let signer = crate::publish::signing::rotate(&store, &key.signing_key).await?;
+            println!(
+                "new signing key {} written to {}; restart every instance with it",
+                signer.key_id(),
+                key.signing_key.display()
+            );
+        }
+        KeysCommand::List { db } => {
+            let store = Store::open(&db.database_url).await?;
+            println!("key_id\tstatus\tcreated_at\tretired_at\tpublic_key");
+            for k in crate::publish::signing::registry(&store).await? {
+                println!(
+                    "{}\t{}\t{}\t{}\t{}",
+                    k.key_id,
+                    k.status,
+                    k.created_at,
+                    k.retired_at.map(|t| t.to_string()).unwrap_or_default(),
+                    k.public_key
+                );
+            }
+        }
+    }
+    Ok(())
 }

@@ -10,6 +10,7 @@ use clap::{Args, Parser, Subcommand};
 
 pub const DEFAULT_DATABASE_URL: &str = "sqlite://cutpoints.db";
 pub const DEFAULT_BIND: &str = "127.0.0.1:8080";
+pub const DEFAULT_SIGNING_KEY: &str = "cutpoints-signing.key";
 
 #[derive(Parser, Debug)]
 #[command(
@@ -30,6 +31,14 @@ pub struct DatabaseArgs {
 }
 
 #[derive(Args, Debug, Clone)]
+pub struct SigningKeyArgs {
+    /// File holding the Ed25519 key that signs published sets (created, mode 0600, when
+    /// missing and no key is registered yet).
+    #[arg(long, env = "CUTPOINTS_SIGNING_KEY", default_value = DEFAULT_SIGNING_KEY)]
+    pub signing_key: std::path::PathBuf,
+}
+
+#[derive(Args, Debug, Clone)]
 pub struct ServeArgs {
     #[command(flatten)]
     pub db: DatabaseArgs,
@@ -44,6 +53,11 @@ pub struct ServeArgs {
     /// throttling), e.g. X-Forwarded-For. Leave unset when clients connect directly.
     #[arg(long, env = "CUTPOINTS_FORWARDED_HEADER")]
     pub forwarded_header: Option<String>,
+    #[command(flatten)]
+    pub key: SigningKeyArgs,
+    /// Let anyone read the published set, the signing keys and evaluate without a token.
+    #[arg(long, env = "CUTPOINTS_PUBLIC_READ")]
+    pub public_read: bool,
     /// Do not apply migrations at start-up (the database role may not change the schema);
     /// refuse to start if any are missing. See docs/postgres-app-role.sql.
     #[arg(long, env = "CUTPOINTS_SKIP_MIGRATIONS")]
@@ -78,6 +92,11 @@ pub enum Command {
     /// Check the event record.
     #[command(subcommand)]
     Audit(AuditCommand),
+    /// Print the published set (the same bytes as GET /api/v1/published).
+    Export(ExportArgs),
+    /// Manage the keys that sign published sets.
+    #[command(subcommand)]
+    Keys(KeysCommand),
     /// Change the approval policy (recorded in the event record).
     #[command(subcommand)]
     Policy(PolicyCommand),
@@ -137,6 +156,40 @@ pub enum UserCommand {
         username: String,
         #[arg(long, env = "CUTPOINTS_PASSWORD_STDIN", required = true)]
         password_stdin: bool,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+#[derive(Args, Debug, Clone)]
+pub struct ExportArgs {
+    /// The set in force at this time (valid time); default now.
+    #[arg(long, env = "CUTPOINTS_AS_OF")]
+    pub as_of: Option<String>,
+    /// As the register had recorded it by this time (transaction time); default now.
+    #[arg(long, env = "CUTPOINTS_KNOWN_AT")]
+    pub known_at: Option<String>,
+    #[arg(long, env = "CUTPOINTS_FORMAT", default_value = "json", value_parser = ["json", "csv"])]
+    pub format: String,
+    #[command(flatten)]
+    pub key: SigningKeyArgs,
+    #[command(flatten)]
+    pub db: DatabaseArgs,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum KeysCommand {
+    /// Make a new signing key, write it over the key file, register it as current and retire
+    /// the old one (still listed, so sets it signed stay verifiable). Restart every instance
+    /// with the new key file afterwards.
+    Rotate {
+        #[command(flatten)]
+        key: SigningKeyArgs,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+    /// List the registered public keys.
+    List {
         #[command(flatten)]
         db: DatabaseArgs,
     },

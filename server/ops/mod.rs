@@ -4,6 +4,7 @@
 pub mod audit;
 pub mod metrics;
 pub mod proposals;
+pub mod publication;
 pub mod users;
 pub mod versions;
 

@@ -487,6 +487,7 @@ async fn approve_if_complete(
             canonical_text: &version_text,
             approvers: &approvers,
             signatory: signoff.map(|s| s.signer_name.as_str()),
+            metric_name: &metric.name,
         },
     )
     .await?;

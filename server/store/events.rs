@@ -185,6 +185,17 @@ pub async fn head(conn: &mut AnyConnection) -> StoreResult<(i64, String)> {
     Ok((row.try_get("seq")?, row.try_get("hash")?))
 }
 
+/// The chain's head as it was at `at`: the hash of the last event recorded by then (the
+/// genesis hash before the first).
+pub async fn head_at(conn: &mut AnyConnection, at: Timestamp) -> StoreResult<String> {
+    let hash: Option<String> =
+        sqlx::query_scalar("SELECT hash FROM events WHERE at <= $1 ORDER BY seq DESC LIMIT 1")
+            .bind(at)
+            .fetch_optional(&mut *conn)
+            .await?;
+    Ok(hash.unwrap_or_else(|| GENESIS_HASH.to_string()))
+}
+
 /// How many events `verify` reads at a time.
 const VERIFY_PAGE: i64 = 10_000;
 

@@ -45,6 +45,8 @@ pub struct VersionRecord {
     pub canonical_text: String,
     pub approvers: Vec<String>,
     pub signatory: Option<String>,
+    /// The metric's name when the version was approved (the published set shows it).
+    pub metric_name: String,
 }
 
 impl VersionRecord {
@@ -104,6 +106,7 @@ fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {
         canonical_text: row.try_get("canonical_text")?,
         approvers: serde_json::from_str(&approvers).unwrap_or_default(),
         signatory: row.try_get("signatory")?,
+        metric_name: row.try_get("metric_name")?,
     })
 }
 
@@ -112,7 +115,7 @@ macro_rules! select_versions {
         concat!(
             "SELECT id, metric_id, number, proposal_id, revision_number, revision_hash, direction, ",
             "cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, rationale, ",
-            "canonical_text, approvers, signatory FROM versions ",
+            "canonical_text, approvers, signatory, metric_name FROM versions ",
             $rest
         )
     };
@@ -189,6 +192,7 @@ pub struct NewVersion<'a> {
     pub canonical_text: &'a str,
     pub approvers: &'a [String],
     pub signatory: Option<&'a str>,
+    pub metric_name: &'a str,
 }
 
 /// Records a version, numbered after the metric's last; returns its number.
@@ -204,8 +208,8 @@ pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
     sqlx::query(
         "INSERT INTO versions (metric_id, number, proposal_id, revision_number, revision_hash, \
          direction, cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, \
-         rationale, canonical_text, approvers, signatory) \
-         VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18)",
+         rationale, canonical_text, approvers, signatory, metric_name) \
+         VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19)",
     )
     .bind(v.metric_id)
     .bind(number)
@@ -225,6 +229,7 @@ pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
     .bind(v.canonical_text)
     .bind(serde_json::to_string(v.approvers).expect("names serialise"))
     .bind(v.signatory)
+    .bind(v.metric_name)
     .execute(w.conn())
     .await?;
     Ok(number)
@@ -233,10 +238,76 @@ pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
 /// `set_revision` at `at`: how many versions, across the register, had been both approved and
 /// effective by then. It changes exactly when the published set's content changes.
 pub async fn set_revision(conn: &mut AnyConnection, at: Timestamp) -> StoreResult<i64> {
-    Ok(sqlx::query_scalar(
-        "SELECT COUNT(*) FROM versions WHERE approved_at <= $1 AND effective_from <= $1",
+    Ok(set_state(conn, at, at).await?.0)
+}
+
+/// The published set's revision at `as_of` as recorded by `known_at`, and when that revision
+/// took effect: the versions approved by both times and effective by `as_of`.
+pub async fn set_state(
+    conn: &mut AnyConnection,
+    as_of: Timestamp,
+    known_at: Timestamp,
+) -> StoreResult<(i64, Option<Timestamp>)> {
+    let row = sqlx::query(
+        "SELECT COUNT(*) AS n, \
+         MAX(CASE WHEN approved_at > effective_from THEN approved_at ELSE effective_from END) AS since \
+         FROM versions WHERE approved_at <= $1 AND approved_at <= $2 AND effective_from <= $1",
     )
-    .bind(at)
+    .bind(as_of)
+    .bind(known_at)
+    .fetch_one(&mut *conn)
+    .await?;
+    Ok((row.try_get("n")?, row.try_get("since")?))
+}
+
+/// The next time the current set changes without a new approval: a scheduled version's
+/// effective time.
+pub async fn next_scheduled(
+    conn: &mut AnyConnection,
+    now: Timestamp,
+) -> StoreResult<Option<Timestamp>> {
+    Ok(sqlx::query_scalar(
+        "SELECT MIN(effective_from) FROM versions WHERE effective_from > $1 AND approved_at <= $1",
+    )
+    .bind(now)
     .fetch_one(&mut *conn)
     .await?)
+}
+
+/// Every metric's version in force at `as_of` as recorded by `known_at`, with the metric's
+/// key, in key order.
+pub async fn in_force_all(
+    conn: &mut AnyConnection,
+    as_of: Timestamp,
+    known_at: Timestamp,
+) -> StoreResult<Vec<(String, VersionRecord)>> {
+    let rows = sqlx::query(concat!(
+        "SELECT m.key AS metric_key, v.id, v.metric_id, v.number, v.proposal_id, v.revision_number, ",
+        "v.revision_hash, v.direction, v.cut_1, v.cut_2, v.cut_3, v.cut_4, v.shades, v.unit, ",
+        "v.effective_from, v.approved_at, v.rationale, v.canonical_text, v.approvers, v.signatory, ",
+        "v.metric_name FROM versions v JOIN metrics m ON m.id = v.metric_id ",
+        "WHERE v.effective_from <= $1 AND v.approved_at <= $2 AND v.number = (",
+        "SELECT MAX(w.number) FROM versions w WHERE w.metric_id = v.metric_id ",
+        "AND w.effective_from <= $1 AND w.approved_at <= $2) ORDER BY m.key"
+    ))
+    .bind(as_of)
+    .bind(known_at)
+    .fetch_all(&mut *conn)
+    .await?;
+    rows.iter()
+        .map(|r| Ok((r.try_get("metric_key")?, version_from_row(r)?)))
+        .collect()
+}
+
+/// Keys of metrics added to the register by `at`.
+pub async fn metrics_existing_at(
+    conn: &mut AnyConnection,
+    at: Timestamp,
+) -> StoreResult<Vec<String>> {
+    Ok(
+        sqlx::query_scalar("SELECT key FROM metrics WHERE created_at <= $1 ORDER BY key")
+            .bind(at)
+            .fetch_all(&mut *conn)
+            .await?,
+    )
 }

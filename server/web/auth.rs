@@ -80,7 +80,7 @@ pub fn cookie_header(state: &AppState, name: &str, value: &str, remove: bool) ->
 }
 
 /// POST endpoints that compute an answer and change nothing: read-scope tokens may call them.
-const READ_ONLY_POSTS: &[&str] = &["/api/v1/classify"];
+const READ_ONLY_POSTS: &[&str] = &["/api/v1/classify", "/api/v1/evaluate"];
 
 fn is_safe(method: &Method) -> bool {
     matches!(*method, Method::GET | Method::HEAD | Method::OPTIONS)
@@ -169,6 +169,11 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
                 let expected = session.csrf_token.clone();
                 req = check_form_token(req, &expected).await?;
             }
+            // With --public-read, anyone may evaluate (it reads the published set only).
+            None if is_api
+                && state.config.public_read
+                && req.method() == Method::POST
+                && req.uri().path() == "/api/v1/evaluate" => {}
             None if is_api => {
                 return Err(ApiError::unauthorized(
                     "sign in, or send 'Authorization: Bearer TOKEN'",

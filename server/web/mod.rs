@@ -35,6 +35,8 @@ pub struct WebConfig {
     pub forwarded_header: Option<HeaderName>,
     /// Largest JSON body the API accepts.
     pub body_limit: usize,
+    /// Anyone may read the published set, the keys and evaluate, without credentials.
+    pub public_read: bool,
 }
 
 impl Default for WebConfig {
@@ -43,6 +45,7 @@ impl Default for WebConfig {
             secure_cookies: false,
             forwarded_header: None,
             body_limit: 2 * 1024 * 1024,
+            public_read: false,
         }
     }
 }
@@ -52,13 +55,15 @@ impl Default for WebConfig {
 pub struct AppState {
     pub store: Store,
     pub config: Arc<WebConfig>,
+    pub publisher: Arc<crate::publish::Publisher>,
 }
 
 impl AppState {
-    pub fn new(store: Store, config: WebConfig) -> AppState {
+    pub fn new(store: Store, config: WebConfig, signer: crate::publish::Signer) -> AppState {
         AppState {
             store,
             config: Arc::new(config),
+            publisher: Arc::new(crate::publish::Publisher::new(signer)),
         }
     }
 }
@@ -157,6 +162,12 @@ fn api_routes(config: &WebConfig) -> Router<AppState> {
         .route("/v1/proposals/{id}/withdraw", post(p::withdraw))
         .route("/v1/proposals/{id}/reject", post(p::reject))
         .route("/v1/inbox", get(p::inbox))
+        .route("/v1/published", get(api::published::set))
+        .route("/v1/published.csv", get(api::published::set_csv))
+        .route("/v1/published/changes", get(api::published::changes))
+        .route("/v1/published/{key}", get(api::published::one))
+        .route("/v1/keys", get(api::published::keys))
+        .route("/v1/evaluate", post(api::published::evaluate))
         .route("/v1/audit", get(api::audit::events))
         .route("/v1/audit.csv", get(api::audit::events_csv))
         .route("/v1/audit/verify", get(api::audit::verify))

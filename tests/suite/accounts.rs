@@ -221,7 +221,8 @@ on_both_backends! {
         }
         let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
         let other = format!("http://{}", listener.local_addr().unwrap());
-        let state = cutpoints::AppState::new(app.store.clone(), cutpoints::WebConfig::default());
+        let signer = cutpoints::publish::signing::load_or_create(&app.store, &app.key_file).await.unwrap();
+        let state = cutpoints::AppState::new(app.store.clone(), cutpoints::WebConfig::default(), signer);
         tokio::spawn(cutpoints::serve(listener, state, std::future::pending()));
         let browser = Browser { base: other, ..Browser::new(&app) };
         assert_eq!(browser.sign_in("ana", PASSWORD).await.status(), 429);

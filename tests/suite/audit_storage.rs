@@ -31,16 +31,17 @@ on_both_backends! {
         for t in tasks {
             t.await.unwrap().expect("every append succeeds");
         }
+        // The signing key's registration, the admin, and forty metrics.
         let events = app.events().await;
-        assert_eq!(events.len(), 41);
+        assert_eq!(events.len(), 42);
         let mut v = Verifier::new(None);
         for e in &events {
             v.push(e).unwrap_or_else(|b| panic!("{b}"));
         }
         let (count, head) = v.finish().unwrap();
-        assert_eq!(count, 41);
+        assert_eq!(count, 42);
         assert_ne!(head, GENESIS_HASH);
-        assert_eq!(cutpoints::store::events::verify(&app.store, None).await.unwrap(), Ok((41, head)));
+        assert_eq!(cutpoints::store::events::verify(&app.store, None).await.unwrap(), Ok((42, head)));
     }
 
     async fn serving_without_migrations_refuses_an_unmigrated_database(app) {
@@ -139,7 +140,7 @@ async fn the_postgres_app_role_can_append_but_not_change_the_record() {
             .unwrap()
             .unwrap()
             .0,
-        2
+        3
     );
     store.pool().close().await;
     let _ = sqlx::query(sqlx::AssertSqlSafe(format!("DROP OWNED BY {role}")))

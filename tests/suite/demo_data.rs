@@ -56,7 +56,7 @@ fn close_to_real_time(t: Timestamp) -> bool {
 
 on_both_backends! {
     async fn the_demo_register_has_history_versions_in_force_and_open_proposals(app) {
-        let people = cutpoints::demo::seed(&app.store).await.unwrap();
+        let (app, people) = TestApp::spawn_demo(app.backend).await.unwrap();
         assert_eq!(people.len(), cutpoints::demo::PEOPLE.len());
         // The clock is back on real time for the running demo.
         assert!(close_to_real_time(app.store.now()), "{}", app.store.now());
@@ -166,8 +166,7 @@ on_both_backends! {
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_failed_seeding_still_puts_the_clock_back_on_real_time() {
-    let app = TestApp::spawn(Backend::Sqlite).await.unwrap();
-    cutpoints::demo::seed(&app.store).await.unwrap();
+    let (app, _) = TestApp::spawn_demo(Backend::Sqlite).await.unwrap();
     // A second run fails at once (the people exist already), with the clock set to the past.
     assert!(cutpoints::demo::seed(&app.store).await.is_err());
     assert!(close_to_real_time(app.store.now()), "{}", app.store.now());

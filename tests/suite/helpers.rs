@@ -49,7 +49,9 @@ pub struct TestApp {
     /// A client without cookies, for API calls.
     pub http: reqwest::Client,
     shutdown: Option<tokio::sync::oneshot::Sender<()>>,
-    _folder: Option<tempfile::TempDir>,
+    /// The signing key file of this app (its folder lives as long as the app).
+    pub key_file: std::path::PathBuf,
+    _folder: tempfile::TempDir,
     postgres: Option<(String, String)>,
 }
 
@@ -67,6 +69,22 @@ impl TestApp {
     }
 
     pub async fn spawn_with(backend: Backend, config: WebConfig) -> Option<TestApp> {
+        Self::spawn_inner(backend, config, false)
+            .await
+            .map(|(app, _)| app)
+    }
+
+    /// An app whose database was seeded with the demo scenario before anything else was
+    /// recorded (the scenario's invented past must come first in the event record).
+    pub async fn spawn_demo(backend: Backend) -> Option<(TestApp, Vec<User>)> {
+        Self::spawn_inner(backend, WebConfig::default(), true).await
+    }
+
+    async fn spawn_inner(
+        backend: Backend,
+        config: WebConfig,
+        demo: bool,
+    ) -> Option<(TestApp, Vec<User>)> {
         // Server-side errors (a template that fails, a database error) show in the output of
         // the test that caused them.
         let _ = tracing_subscriber::fmt()
@@ -98,10 +116,20 @@ impl TestApp {
             }
         };
         let store = Store::open(&url).await.expect("open and migrate");
+        let people = if demo {
+            cutpoints::demo::seed(&store).await.expect("the demo seeds")
+        } else {
+            Vec::new()
+        };
+        let folder = folder.unwrap_or_else(|| tempfile::tempdir().expect("temp folder"));
+        let key_file = folder.path().join("signing.key");
+        let signer = cutpoints::publish::signing::load_or_create(&store, &key_file)
+            .await
+            .expect("a signing key");
         let listener = TcpListener::bind("127.0.0.1:0").await.expect("bind");
         let base = format!("http://{}", listener.local_addr().unwrap());
         let (tx, rx) = tokio::sync::oneshot::channel::<()>();
-        let state = AppState::new(store.clone(), config);
+        let state = AppState::new(store.clone(), config, signer);
         tokio::spawn(async move {
             cutpoints::serve(listener, state, async {
                 let _ = rx.await;
@@ -109,7 +137,7 @@ impl TestApp {
             .await
             .expect("server runs");
         });
-        Some(TestApp {
+        let app = TestApp {
             base,
             store,
             store_url: url,
@@ -119,9 +147,11 @@ impl TestApp {
                 .build()
                 .unwrap(),
             shutdown: Some(tx),
+            key_file,
             _folder: folder,
             postgres,
-        })
+        };
+        Some((app, people))
     }
 
     pub fn url(&self, path: &str) -> String {

@@ -16,6 +16,7 @@ mod engine_properties;
 mod engine_rules;
 mod pages;
 mod platform;
+mod published;
 mod register_api;
 mod serve;
 mod workflow_api;

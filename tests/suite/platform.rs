@@ -81,9 +81,11 @@ on_both_backends! {
             let e = sqlx::query("TRUNCATE events").execute(app.store.pool()).await.expect_err("truncate");
             assert!(e.to_string().contains("append-only"), "{e}");
         }
+        // The signing key's registration, then the person.
         let events = app.events().await;
-        assert_eq!(events.len(), 1);
-        assert_eq!(events[0].event.actor, "cli");
+        assert_eq!(events.len(), 2);
+        assert_eq!(events[0].event.action, "key.registered");
+        assert_eq!(events[1].event.actor, "cli");
     }
 
     async fn events_link_into_one_chain(app) {
@@ -91,7 +93,7 @@ on_both_backends! {
         app.add_user("ben", "admin").await;
         app.token("ben", Scope::Read).await;
         let events = app.events().await;
-        assert_eq!(events.len(), 3);
+        assert_eq!(events.len(), 4, "the key's registration and three changes");
         let mut prev = GENESIS_HASH.to_string();
         for (i, e) in events.iter().enumerate() {
             assert_eq!(e.event.seq, i as i64 + 1);
@@ -120,17 +122,18 @@ on_both_backends! {
         for t in tasks {
             t.await.unwrap().expect("every write succeeds");
         }
+        // The signing key's registration, the admin, and forty metrics.
         let events = app.events().await;
-        assert_eq!(events.len(), 41);
+        assert_eq!(events.len(), 42);
         let seqs: Vec<i64> = events.iter().map(|e| e.event.seq).collect();
-        assert_eq!(seqs, (1..=41).collect::<Vec<_>>());
+        assert_eq!(seqs, (1..=42).collect::<Vec<_>>());
         let mut prev = GENESIS_HASH.to_string();
         for e in &events {
             assert_eq!(e.prev_hash, prev, "seq {}", e.event.seq);
             prev = e.hash.clone();
         }
         let subjects: HashSet<_> = events.iter().map(|e| e.event.subject.clone()).collect();
-        assert_eq!(subjects.len(), 41);
+        assert_eq!(subjects.len(), 42);
     }
 
     async fn a_failed_write_leaves_neither_rows_nor_events(app) {
@@ -219,7 +222,7 @@ on_both_backends! {
     }
 
     async fn the_demo_scenario_seeds_an_empty_database_once(app) {
-        let people = cutpoints::demo::seed(&app.store).await.unwrap();
+        let (app, people) = TestApp::spawn_demo(app.backend).await.unwrap();
         assert_eq!(people.len(), cutpoints::demo::PEOPLE.len());
         assert_eq!(cutpoints::store::metrics::count(&app.store).await.unwrap(), 5);
         for role in ["admin", "owner", "reviewer", "signatory", "auditor", "viewer"] {

@@ -115,6 +115,7 @@ async fn serve_runs_on_the_named_database_and_stops_on_sigterm() {
     let mut child = Command::new(env!("CARGO_BIN_EXE_cutpoints"))
         .args(["serve", "--bind", &bind])
         .env("CUTPOINTS_DATABASE_URL", &app.store_url)
+        .env("CUTPOINTS_SIGNING_KEY", &app.key_file)
         .env("CUTPOINTS_LOG", "warn")
         .stdout(Stdio::null())
         .stderr(Stdio::null())

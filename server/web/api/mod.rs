@@ -4,6 +4,7 @@ pub mod audit;
 pub mod classify;
 pub mod metrics;
 pub mod proposals;
+pub mod published;
 
 use axum::Json;
 use axum::response::{IntoResponse, Response};

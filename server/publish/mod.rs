@@ -1,0 +1,168 @@
+//! Publishing the approved set: what is in force, encoded, digested, signed, and cached once
+//! per set revision so that serving it costs no more than sending bytes.
+
+pub mod document;
+pub mod signing;
+
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use crate::domain::Timestamp;
+use crate::store::{Store, StoreError, StoreResult, events, versions};
+use document::{Rendered, SetContent};
+pub use signing::Signer;
+
+/// How long a cached current set is trusted before the revision is read again. Another
+/// instance's approval therefore shows here within this time.
+pub const FRESHNESS: Duration = Duration::from_millis(500);
+
+/// Reads what a set holds at `as_of` as recorded by `known_at`, optionally for one metric.
+pub async fn content(
+    store: &Store,
+    as_of: Timestamp,
+    known_at: Timestamp,
+    requested: (Option<Timestamp>, Option<Timestamp>),
+    only: Option<&str>,
+) -> StoreResult<SetContent> {
+    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let (set_revision, in_force_since) = versions::set_state(&mut conn, as_of, known_at).await?;
+    let mut in_force = versions::in_force_all(&mut conn, as_of, known_at).await?;
+    // Byte order of keys, whatever the database's collation.
+    in_force.sort_by(|a, b| a.0.cmp(&b.0));
+    let keys: std::collections::HashSet<&str> = in_force.iter().map(|(k, _)| k.as_str()).collect();
+    // The set is a function of its revision: metrics without a version are those that
+    // existed when the revision took effect.
+    let mut without = match in_force_since {
+        Some(since) => versions::metrics_existing_at(&mut conn, since)
+            .await?
+            .into_iter()
+            .filter(|k| !keys.contains(k.as_str()))
+            .collect(),
+        None => Vec::new(),
+    };
+    let audit_head = match in_force_since {
+        Some(since) => events::head_at(&mut conn, since).await?,
+        None => crate::audit::GENESIS_HASH.to_string(),
+    };
+    without.sort();
+    if let Some(key) = only {
+        in_force.retain(|(k, _)| k == key);
+        without.retain(|k| k == key);
+    }
+    Ok(SetContent {
+        set_revision,
+        in_force_since,
+        audit_head,
+        metrics_without_version: without,
+        versions: in_force,
+        as_of: requested.0,
+        known_at: requested.1,
+    })
+}
+
+struct Cached {
+    rendered: Arc<Rendered>,
+    checked: Instant,
+    /// The set changes by itself at this time (a scheduled version takes effect).
+    valid_until: Option<Timestamp>,
+}
+
+/// Builds and caches published sets for one instance.
+pub struct Publisher {
+    signer: Signer,
+    current: Mutex<Option<Cached>>,
+}
+
+impl std::fmt::Debug for Publisher {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Publisher")
+            .field("signer", &self.signer)
+            .finish()
+    }
+}
+
+impl Publisher {
+    pub fn new(signer: Signer) -> Publisher {
+        Publisher {
+            signer,
+            current: Mutex::new(None),
+        }
+    }
+
+    pub fn signer(&self) -> &Signer {
+        &self.signer
+    }
+
+    fn cached(&self, now: Timestamp) -> Option<Arc<Rendered>> {
+        let guard = self
+            .current
+            .lock()
+            .expect("the cache lock is never poisoned");
+        guard.as_ref().and_then(|c| {
+            let fresh = c.checked.elapsed() < FRESHNESS && c.valid_until.is_none_or(|t| now < t);
+            fresh.then(|| c.rendered.clone())
+        })
+    }
+
+    /// The set in force now, rendered once per set revision.
+    pub async fn current(&self, store: &Store) -> StoreResult<Arc<Rendered>> {
+        let now = store.now();
+        if let Some(hit) = self.cached(now) {
+            return Ok(hit);
+        }
+        let (revision, valid_until) = {
+            let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+            let (revision, _) = versions::set_state(&mut conn, now, now).await?;
+            (revision, versions::next_scheduled(&mut conn, now).await?)
+        };
+        let reuse = {
+            let guard = self
+                .current
+                .lock()
+                .expect("the cache lock is never poisoned");
+            guard
+                .as_ref()
+                .filter(|c| c.rendered.set_revision == revision)
+                .map(|c| c.rendered.clone())
+        };
+        let rendered = match reuse {
+            Some(r) => r,
+            None => {
+                let c = content(store, now, now, (None, None), None).await?;
+                Arc::new(document::render(&c, &self.signer))
+            }
+        };
+        *self
+            .current
+            .lock()
+            .expect("the cache lock is never poisoned") = Some(Cached {
+            rendered: rendered.clone(),
+            checked: Instant::now(),
+            valid_until,
+        });
+        Ok(rendered)
+    }
+
+    /// The set at requested times, or for one metric; built for each request.
+    pub async fn at(
+        &self,
+        store: &Store,
+        as_of: Option<Timestamp>,
+        known_at: Option<Timestamp>,
+        only: Option<&str>,
+    ) -> StoreResult<Arc<Rendered>> {
+        if as_of.is_none() && known_at.is_none() && only.is_none() {
+            return self.current(store).await;
+        }
+        let now = store.now();
+        let c = content(
+            store,
+            as_of.unwrap_or(now),
+            known_at.unwrap_or(now),
+            (as_of, known_at),
+            only,
+        )
+        .await?;
+        Ok(Arc::new(document::render(&c, &self.signer)))
+    }
+}

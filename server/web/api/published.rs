@@ -1,0 +1,352 @@
+//! `/api/v1/published...`, `/api/v1/keys` and `/api/v1/evaluate`: the approved set for
+//! dashboards and pipelines, byte for byte the same for the same request, with strong ETags
+//! and `If-None-Match` (RFC 9110 §13.1.2).
+
+use std::sync::Arc;
+
+use axum::Json;
+use axum::extract::{FromRequestParts, Path, State};
+use axum::http::request::Parts;
+use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use crate::domain::thresholds::{CutSet, Direction, Shades};
+use crate::domain::{MetricKey, Timestamp};
+use crate::engine::classify;
+use crate::publish::document::Rendered;
+use crate::web::AppState;
+use crate::web::auth::ApiCaller;
+use crate::web::error::ApiError;
+use crate::web::extract::{ApiJson, ApiQuery};
+
+/// A reader of the published set: anyone signed in or holding a token (any scope), or anyone
+/// at all when the instance serves with `--public-read`.
+pub struct Reader;
+
+impl FromRequestParts<AppState> for Reader {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        if state.config.public_read {
+            return Ok(Reader);
+        }
+        ApiCaller::from_request_parts(parts, state)
+            .await
+            .map(|_| Reader)
+    }
+}
+
+#[derive(Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
+pub struct TimesQuery {
+    as_of: String,
+    known_at: String,
+}
+
+fn time(name: &str, text: &str) -> Result<Option<Timestamp>, ApiError> {
+    if text.trim().is_empty() {
+        return Ok(None);
+    }
+    Timestamp::parse(text)
+        .map(Some)
+        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
+}
+
+impl TimesQuery {
+    fn times(&self) -> Result<(Option<Timestamp>, Option<Timestamp>), ApiError> {
+        Ok((
+            time("as_of", &self.as_of)?,
+            time("known_at", &self.known_at)?,
+        ))
+    }
+}
+
+/// Does `If-None-Match` match `etag`? RFC 9110 §13.1.2: `*` matches any current
+/// representation; otherwise a comma-separated list of entity tags, compared weakly (a `W/`
+/// prefix is ignored on either side).
+pub fn if_none_match(header_value: &str, etag: &str) -> bool {
+    let ours = etag.trim_start_matches("W/");
+    let value = header_value.trim();
+    if value == "*" {
+        return true;
+    }
+    let mut rest = value;
+    loop {
+        rest = rest.trim_start_matches(|c: char| c == ',' || c.is_whitespace());
+        if rest.is_empty() {
+            return false;
+        }
+        let candidate = rest.strip_prefix("W/").unwrap_or(rest);
+        let Some(body) = candidate.strip_prefix('"') else {
+            return false;
+        };
+        let Some(end) = body.find('"') else {
+            return false;
+        };
+        let tag = &candidate[..end + 2];
+        if tag == ours {
+            return true;
+        }
+        rest = &body[end + 1..];
+    }
+}
+
+fn header_value(text: &str) -> HeaderValue {
+    HeaderValue::from_str(text).expect("hex, base64 and digits")
+}
+
+/// Sends one rendering of a set, or 304 when the client's copy is current.
+fn send(request: &HeaderMap, r: &Rendered, csv: bool) -> Response {
+    let (etag, content_digest) = if csv {
+        (&r.csv_etag, &r.csv_content_digest)
+    } else {
+        (&r.json_etag, &r.json_content_digest)
+    };
+    let mut headers = HeaderMap::new();
+    headers.insert(header::ETAG, header_value(etag));
+    headers.insert(header::CACHE_CONTROL, HeaderValue::from_static("no-cache"));
+    headers.insert(
+        HeaderName::from_static("cutpoints-set-revision"),
+        HeaderValue::from(r.set_revision),
+    );
+    headers.insert(
+        HeaderName::from_static("cutpoints-set-digest"),
+        header_value(&r.digest),
+    );
+    let matched = request
+        .get_all(header::IF_NONE_MATCH)
+        .iter()
+        .filter_map(|v| v.to_str().ok())
+        .any(|v| if_none_match(v, etag));
+    if matched {
+        return (StatusCode::NOT_MODIFIED, headers).into_response();
+    }
+    headers.insert(
+        HeaderName::from_static("content-digest"),
+        header_value(content_digest),
+    );
+    let (content_type, body) = if csv {
+        ("text/csv; charset=utf-8; header=present", r.csv.clone())
+    } else {
+        ("application/json", r.json.clone())
+    };
+    headers.insert(header::CONTENT_TYPE, HeaderValue::from_static(content_type));
+    (headers, body).into_response()
+}
+
+async fn rendered(
+    state: &AppState,
+    q: &TimesQuery,
+    only: Option<&str>,
+) -> Result<Arc<Rendered>, ApiError> {
+    let (as_of, known_at) = q.times()?;
+    Ok(state
+        .publisher
+        .at(&state.store, as_of, known_at, only)
+        .await?)
+}
+
+/// `GET /api/v1/published[?as_of=T&known_at=R]`.
+pub async fn set(
+    State(state): State<AppState>,
+    _reader: Reader,
+    headers: HeaderMap,
+    ApiQuery(q): ApiQuery<TimesQuery>,
+) -> Result<Response, ApiError> {
+    let r = rendered(&state, &q, None).await?;
+    Ok(send(&headers, &r, false))
+}
+
+/// `GET /api/v1/published.csv`.
+pub async fn set_csv(
+    State(state): State<AppState>,
+    _reader: Reader,
+    headers: HeaderMap,
+    ApiQuery(q): ApiQuery<TimesQuery>,
+) -> Result<Response, ApiError> {
+    let r = rendered(&state, &q, None).await?;
+    Ok(send(&headers, &r, true))
+}
+
+/// `GET /api/v1/published/{key}`: the set narrowed to one metric (its own digest and
+/// signature); 404 when no version of it is in force.
+pub async fn one(
+    State(state): State<AppState>,
+    _reader: Reader,
+    headers: HeaderMap,
+    Path(key): Path<String>,
+    ApiQuery(q): ApiQuery<TimesQuery>,
+) -> Result<Response, ApiError> {
+    let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
+    crate::store::metrics::get(&state.store, key.as_str()).await?;
+    let r = rendered(&state, &q, Some(key.as_str())).await?;
+    if r.document["set"].get(key.as_str()).is_none() {
+        return Err(ApiError::not_found(format!(
+            "no version of {key} is in force at the requested time"
+        )));
+    }
+    Ok(send(&headers, &r, false))
+}
+
+#[derive(Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
+pub struct ChangesQuery {
+    from: Option<i64>,
+    to: Option<i64>,
+}
+
+/// `GET /api/v1/published/changes?from=REV&to=REV`: which metrics moved between two set
+/// revisions, with their old and new cuts.
+pub async fn changes(
+    State(state): State<AppState>,
+    _reader: Reader,
+    ApiQuery(q): ApiQuery<ChangesQuery>,
+) -> Result<Response, ApiError> {
+    let current = state.publisher.current(&state.store).await?.set_revision;
+    let (Some(from), Some(to)) = (q.from, q.to) else {
+        return Err(ApiError::bad_request(
+            "give both from and to (set revisions)",
+        ));
+    };
+    if from < 0 || to < from || to > current {
+        return Err(ApiError::bad_request(format!(
+            "need 0 <= from <= to <= {current} (the current set revision), got from={from} to={to}"
+        )));
+    }
+    let list = crate::ops::publication::changes(&state.store, from, to).await?;
+    Ok(Json(json!({"from": from, "to": to, "changes": list})).into_response())
+}
+
+/// `GET /api/v1/keys`: the public keys, current and retired, to verify signatures with.
+pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Response, ApiError> {
+    let keys = crate::publish::signing::registry(&state.store).await?;
+    Ok(Json(json!({"keys": keys})).into_response())
+}
+
+/// Most values one evaluate request may carry.
+pub const EVALUATE_MAX: usize = 10_000;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct EvaluateItem {
+    metric: String,
+    /// Required, but may be null (a missing value classifies as no_data).
+    #[serde(deserialize_with = "number_or_null")]
+    value: Option<f64>,
+}
+
+fn number_or_null<'de, D: serde::Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
+    Option::<f64>::deserialize(d)
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct EvaluateRequest {
+    values: Vec<EvaluateItem>,
+    #[serde(default)]
+    as_of: Option<String>,
+}
+
+#[derive(Serialize)]
+#[serde(untagged)]
+enum EvaluateResult {
+    Classified {
+        metric: String,
+        #[serde(flatten)]
+        result: crate::engine::Classification,
+    },
+    Failed {
+        metric: String,
+        value: Option<f64>,
+        error: Value,
+    },
+}
+
+/// `POST /api/v1/evaluate`: classifies values against the set in force (at `as_of`), each
+/// metric's own cut points; an unknown metric or one without a version in force is an error
+/// for that item only.
+pub async fn evaluate(
+    State(state): State<AppState>,
+    _reader: Reader,
+    ApiJson(req): ApiJson<EvaluateRequest>,
+) -> Result<Response, ApiError> {
+    if req.values.len() > EVALUATE_MAX {
+        return Err(ApiError::new(
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "too_large",
+            format!(
+                "at most {EVALUATE_MAX} values per request, got {}",
+                req.values.len()
+            ),
+        ));
+    }
+    let as_of = time("as_of", req.as_of.as_deref().unwrap_or(""))?;
+    let r = state.publisher.at(&state.store, as_of, None, None).await?;
+    // Each metric's cut set, parsed once from the published document.
+    let set = r.document["set"].as_object().cloned().unwrap_or_default();
+    let mut parsed: std::collections::HashMap<&str, Option<(CutSet, Shades)>> =
+        std::collections::HashMap::new();
+    for (key, entry) in &set {
+        let direction: Option<Direction> = entry["direction"].as_str().and_then(|d| d.parse().ok());
+        let cuts = direction.and_then(|d| {
+            let named = entry["cuts"].as_object()?;
+            CutSet::from_named(
+                d,
+                named
+                    .iter()
+                    .filter_map(|(k, v)| Some((k.as_str(), v.as_f64()?))),
+            )
+            .ok()
+        });
+        let shades = entry["shades"].as_i64().and_then(|s| Shades::new(s).ok());
+        parsed.insert(key.as_str(), cuts.zip(shades));
+    }
+    // Keys of the register, read once and only when some item has no version in force.
+    let mut register: Option<std::collections::HashSet<String>> = None;
+    let mut results = Vec::with_capacity(req.values.len());
+    for item in req.values {
+        let found = parsed.get(item.metric.as_str()).copied().flatten();
+        results.push(match found {
+            Some((cuts, shades)) => EvaluateResult::Classified {
+                result: classify(&cuts, shades, item.value),
+                metric: item.metric,
+            },
+            None => {
+                if register.is_none() {
+                    register = Some(crate::ops::publication::metric_keys(&state.store).await?);
+                }
+                let known = register.as_ref().is_some_and(|r| r.contains(&item.metric));
+                let (code, message) = if known {
+                    (
+                        "no_version",
+                        format!(
+                            "no version of {} is in force at the requested time",
+                            item.metric
+                        ),
+                    )
+                } else {
+                    (
+                        "unknown_metric",
+                        format!("no metric with key {:?}", item.metric),
+                    )
+                };
+                EvaluateResult::Failed {
+                    metric: item.metric,
+                    value: item.value,
+                    error: json!({"code": code, "message": message}),
+                }
+            }
+        });
+    }
+    let mut body = json!({
+        "set_revision": r.set_revision,
+        "digest": r.digest,
+        "results": results,
+    });
+    if let Some(t) = as_of {
+        body["as_of"] = json!(t);
+    }
+    Ok(Json(body).into_response())
+}
