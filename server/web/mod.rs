@@ -193,6 +193,8 @@ fn page_routes() -> Router<AppState> {
             get(metrics::edit_form).post(metrics::edit),
         )
         .route("/inbox", get(proposals::inbox))
+        .route("/published", get(pages::published::set))
+        .route("/published/changes", get(pages::published::changes))
         .route("/audit", get(pages::audit::index))
         .route("/audit/metrics/{key}", get(pages::audit::timeline))
         .route("/audit/as-of", get(pages::audit::as_of))

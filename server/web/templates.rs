@@ -31,6 +31,8 @@ const TEMPLATES: &[(&str, &str)] = embed![
     "audit_as_of.html",
     "audit_exceptions.html",
     "audit_events.html",
+    "published.html",
+    "published_changes.html",
 ];
 
 /// The style sheet, served at `/static/style.css`.

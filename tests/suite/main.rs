@@ -17,6 +17,7 @@ mod engine_rules;
 mod pages;
 mod platform;
 mod published;
+mod published_schema;
 mod register_api;
 mod serve;
 mod workflow_api;

@@ -523,3 +523,28 @@ async fn public_read_opens_the_set_keys_and_evaluate_but_nothing_else() {
         401
     );
 }
+
+on_both_backends! {
+    async fn the_published_pages_show_revision_digest_signature_and_strips(app) {
+        let team = Team::new(app).await;
+        team.agree(hib(50.0, 70.0, 80.0, 90.0, "v1")).await;
+        team.agree(hib(45.0, 70.0, 80.0, 90.0, "v2")).await;
+        let b = team.app.signed_in("wren").await;
+        let (status, html) = b.get_text("/published").await;
+        assert_eq!(status, 200);
+        let doc: Value = b.get("/api/v1/published").await.json().await.unwrap();
+        assert!(html.contains(doc["meta"]["digest"].as_str().unwrap()));
+        assert!(html.contains("verified with key ed25519-"), "{html}");
+        assert!(html.contains("<svg") && html.contains("critical 45, intervene 70, outperform 80, stretch 90"));
+        assert!(html.contains("href=\"/api/v1/published.csv\""));
+        assert!(html.contains("do not replace regulatory limits"));
+        let (_, empty) = b.get_text("/published?as_of=2001-01-01").await;
+        assert!(empty.contains("The set is empty at this time."));
+        assert!(empty.contains("href=\"/api/v1/published?as_of=2001-01-01\""));
+        let (status, changes) = b.get_text("/published/changes?from=1&to=2").await;
+        assert_eq!(status, 200);
+        assert!(changes.contains("changed") && changes.contains("critical 50") && changes.contains("critical 45"));
+        let (_, bad) = b.get_text("/published/changes?from=2&to=1").await;
+        assert!(bad.contains("choose revisions"));
+    }
+}

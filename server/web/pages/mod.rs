@@ -5,6 +5,7 @@ pub mod admin;
 pub mod audit;
 pub mod metrics;
 pub mod proposals;
+pub mod published;
 pub mod signin;
 
 use std::collections::BTreeMap;
