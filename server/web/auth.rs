@@ -23,7 +23,7 @@ use super::AppState;
 use super::error::{ApiError, PageError};
 use crate::auth::secret::{constant_time_eq, random_token};
 use crate::store::sessions::{self, Session};
-use crate::store::tokens::{self, Scope};
+use crate::store::tokens::Scope;
 use crate::store::users::User;
 
 pub const SESSION_COOKIE: &str = "cutpoints_session";
@@ -113,7 +113,7 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
     let page_error = |e: ApiError| PageError(e).into_response();
 
     let credential = match bearer(req.headers()).filter(|_| is_api) {
-        Some(Ok(token)) => match tokens::authenticate(&state.store, &token).await {
+        Some(Ok(token)) => match state.tokens.authenticate(&state.store, &token).await {
             Ok(Some((user, scope))) => Some(Credential::Token { user, scope }),
             Ok(None) => {
                 return Err(ApiError::unauthorized(

@@ -8,6 +8,7 @@ pub mod extract;
 pub mod pages;
 pub mod svg;
 pub mod templates;
+pub mod token_cache;
 
 use std::future::Future;
 use std::net::SocketAddr;
@@ -56,6 +57,7 @@ pub struct AppState {
     pub store: Store,
     pub config: Arc<WebConfig>,
     pub publisher: Arc<crate::publish::Publisher>,
+    pub tokens: Arc<token_cache::TokenCache>,
 }
 
 impl AppState {
@@ -64,6 +66,7 @@ impl AppState {
             store,
             config: Arc::new(config),
             publisher: Arc::new(crate::publish::Publisher::new(signer)),
+            tokens: Arc::default(),
         }
     }
 }

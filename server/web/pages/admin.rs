@@ -226,6 +226,7 @@ pub async fn user_active(
     require_admin(&session)?;
     let active = form.get("active") == "1";
     user_ops::set_active(&state.store, By::Person(&session.user), &username, active).await?;
+    state.tokens.clear();
     let saved = if active { "activated" } else { "deactivated" };
     Ok(Redirect::to(&format!("/admin/users/{username}?saved={saved}")).into_response())
 }
@@ -410,6 +411,7 @@ pub async fn token_revoke(
         .parse()
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
     user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
+    state.tokens.clear();
     let back = form.get("back");
     let back = if back.starts_with("/admin/") {
         back
