@@ -6,4 +6,7 @@ pub mod changes;
 pub mod classify;
 pub mod workflow;
 
-pub use classify::{Classification, Side, Zone, classify, classify_all};
+pub use classify::{
+    Classification, Grades, Instructions, Side, Zone, classify, classify_all, grade_all,
+    grade_all_with,
+};

@@ -101,6 +101,9 @@ pub struct Rendered {
     pub csv_content_digest: String,
     #[serde(skip)]
     pub document: Value,
+    /// Each metric's cut set and shades, for evaluating values against this set.
+    #[serde(skip)]
+    pub cut_sets: std::collections::HashMap<String, (crate::domain::CutSet, crate::domain::Shades)>,
 }
 
 fn etag_and_digest(body: &[u8]) -> (String, String) {
@@ -197,5 +200,10 @@ pub fn render(content: &SetContent, signer: &Signer) -> Rendered {
         json_content_digest,
         csv_content_digest,
         document: doc,
+        cut_sets: content
+            .versions
+            .iter()
+            .map(|(key, v)| (key.clone(), (v.content.cuts, v.content.shades)))
+            .collect(),
     }
 }

@@ -71,6 +71,9 @@ struct Cached {
 pub struct Publisher {
     signer: Signer,
     current: Mutex<Option<Cached>>,
+    /// Held by the one request that re-reads the revision; the others meanwhile serve the
+    /// cached set (at most one database round trip staler), instead of all reading at once.
+    refreshing: tokio::sync::Mutex<()>,
 }
 
 impl std::fmt::Debug for Publisher {
@@ -86,6 +89,7 @@ impl Publisher {
         Publisher {
             signer,
             current: Mutex::new(None),
+            refreshing: tokio::sync::Mutex::new(()),
         }
     }
 
@@ -93,21 +97,34 @@ impl Publisher {
         &self.signer
     }
 
-    fn cached(&self, now: Timestamp) -> Option<Arc<Rendered>> {
+    /// The cached set, and whether it is still fresh.
+    fn cached(&self, now: Timestamp) -> Option<(Arc<Rendered>, bool)> {
         let guard = self
             .current
             .lock()
             .expect("the cache lock is never poisoned");
-        guard.as_ref().and_then(|c| {
+        guard.as_ref().map(|c| {
             let fresh = c.checked.elapsed() < FRESHNESS && c.valid_until.is_none_or(|t| now < t);
-            fresh.then(|| c.rendered.clone())
+            (c.rendered.clone(), fresh)
         })
     }
 
     /// The set in force now, rendered once per set revision.
     pub async fn current(&self, store: &Store) -> StoreResult<Arc<Rendered>> {
         let now = store.now();
-        if let Some(hit) = self.cached(now) {
+        let _refreshing = match self.cached(now) {
+            Some((hit, true)) => return Ok(hit),
+            // Someone else is re-reading: the set they started from will do meanwhile, unless
+            // a scheduled version has taken effect since.
+            Some((hit, false)) => match self.refreshing.try_lock() {
+                Ok(guard) => guard,
+                Err(_) if self.current_valid_at(now) => return Ok(hit),
+                Err(_) => self.refreshing.lock().await,
+            },
+            None => self.refreshing.lock().await,
+        };
+        // Another request may have refreshed while this one waited.
+        if let Some((hit, true)) = self.cached(store.now()) {
             return Ok(hit);
         }
         let (revision, valid_until) = {
@@ -141,6 +158,17 @@ impl Publisher {
             valid_until,
         });
         Ok(rendered)
+    }
+
+    /// The cached set does not yet contain a change that is due by `now`.
+    fn current_valid_at(&self, now: Timestamp) -> bool {
+        let guard = self
+            .current
+            .lock()
+            .expect("the cache lock is never poisoned");
+        guard
+            .as_ref()
+            .is_some_and(|c| c.valid_until.is_none_or(|t| now < t))
     }
 
     /// The set at requested times, or for one metric; built for each request.

@@ -37,7 +37,10 @@ pub const FORM_LIMIT: usize = 1024 * 1024;
 #[derive(Clone, Debug)]
 pub enum Credential {
     Session(Session),
-    Token { user: User, scope: Scope },
+    Token {
+        user: std::sync::Arc<User>,
+        scope: Scope,
+    },
 }
 
 impl Credential {
@@ -232,6 +235,14 @@ async fn check_form_token(req: Request, expected: &str) -> Result<Request, Respo
 /// A new random token for the sign-in form's double submit.
 pub fn new_signin_token() -> String {
     random_token("f")
+}
+
+/// Whether the middleware found any credential (without copying it).
+pub fn has_credential(parts: &Parts) -> bool {
+    parts
+        .extensions
+        .get::<Resolved>()
+        .is_some_and(|r| r.0.is_some())
 }
 
 fn resolved(parts: &Parts) -> Option<Credential> {

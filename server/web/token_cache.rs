@@ -6,7 +6,8 @@ use std::collections::HashMap;
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
-use crate::auth::secret::stored_hash;
+use std::sync::Arc;
+
 use crate::store::tokens::{self, Scope};
 use crate::store::users::User;
 use crate::store::{Store, StoreResult};
@@ -15,9 +16,14 @@ pub const TTL: Duration = Duration::from_secs(1);
 /// Entries kept at most; past this the oldest half is dropped.
 const CAPACITY: usize = 10_000;
 
+/// Who a token belongs to, its scope, and when that was read from the database.
+type Entry = (Arc<User>, Scope, Instant);
+
 #[derive(Debug, Default)]
 pub struct TokenCache {
-    entries: Mutex<HashMap<String, (User, Scope, Instant)>>,
+    /// Keyed by the presented token itself: it is in every request anyway, and hashing it
+    /// for each lookup would cost more than the lookup.
+    entries: Mutex<HashMap<String, Entry>>,
 }
 
 impl TokenCache {
@@ -34,20 +40,21 @@ impl TokenCache {
         &self,
         store: &Store,
         secret: &str,
-    ) -> StoreResult<Option<(User, Scope)>> {
-        let key = stored_hash(secret);
+    ) -> StoreResult<Option<(Arc<User>, Scope)>> {
         {
             let entries = self
                 .entries
                 .lock()
                 .expect("the token cache lock is never poisoned");
-            if let Some((user, scope, at)) = entries.get(&key)
+            if let Some((user, scope, at)) = entries.get(secret)
                 && at.elapsed() < TTL
             {
                 return Ok(Some((user.clone(), *scope)));
             }
         }
-        let found = tokens::authenticate(store, secret).await?;
+        let found = tokens::authenticate(store, secret)
+            .await?
+            .map(|(user, scope)| (Arc::new(user), scope));
         let mut entries = self
             .entries
             .lock()
@@ -61,10 +68,10 @@ impl TokenCache {
                         entries.remove(&k);
                     }
                 }
-                entries.insert(key, (user.clone(), *scope, Instant::now()));
+                entries.insert(secret.to_string(), (user.clone(), *scope, Instant::now()));
             }
             None => {
-                entries.remove(&key);
+                entries.remove(secret);
             }
         }
         Ok(found)

@@ -138,3 +138,39 @@ proptest! {
         }
     }
 }
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(1000))]
+
+    /// The batch grader gives exactly the answers of `classify`, value by value, lines included.
+    #[test]
+    fn the_batch_grader_agrees_with_classify(
+        c in ascending_cuts(),
+        s in shades(),
+        values in proptest::collection::vec(value(), 0..1100),
+        on_lines in proptest::collection::vec(0usize..4, 0..8),
+    ) {
+        let mut all = values.clone();
+        all.extend(on_lines.iter().map(|&i| c[i]));
+        all.extend([-1e300, 1e300]);
+        for direction in Direction::ALL {
+            let set = match direction {
+                Direction::LowerIsBetter => CutSet::new(direction, [c[3], c[2], c[1], c[0]]),
+                _ => CutSet::new(direction, c),
+            }.unwrap();
+            // Every instruction set this processor has, so that none goes untested.
+            for instructions in cutpoints::engine::Instructions::available() {
+                let mut graded = cutpoints::engine::Grades::default();
+                cutpoints::engine::grade_all_with(instructions, &set, s, &all, &mut graded);
+                prop_assert_eq!(graded.len(), all.len());
+                for (i, v) in all.iter().enumerate() {
+                    prop_assert_eq!(
+                        graded.classification(i, *v),
+                        classify(&set, s, Some(*v)),
+                        "{:?} at {} with {:?}", direction, v, instructions
+                    );
+                }
+            }
+        }
+    }
+}

@@ -12,7 +12,6 @@ use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use crate::domain::thresholds::{CutSet, Direction, Shades};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
 use crate::publish::document::Rendered;
@@ -284,30 +283,11 @@ pub async fn evaluate(
     }
     let as_of = time("as_of", req.as_of.as_deref().unwrap_or(""))?;
     let r = state.publisher.at(&state.store, as_of, None, None).await?;
-    // Each metric's cut set, parsed once from the published document.
-    let set = r.document["set"].as_object().cloned().unwrap_or_default();
-    let mut parsed: std::collections::HashMap<&str, Option<(CutSet, Shades)>> =
-        std::collections::HashMap::new();
-    for (key, entry) in &set {
-        let direction: Option<Direction> = entry["direction"].as_str().and_then(|d| d.parse().ok());
-        let cuts = direction.and_then(|d| {
-            let named = entry["cuts"].as_object()?;
-            CutSet::from_named(
-                d,
-                named
-                    .iter()
-                    .filter_map(|(k, v)| Some((k.as_str(), v.as_f64()?))),
-            )
-            .ok()
-        });
-        let shades = entry["shades"].as_i64().and_then(|s| Shades::new(s).ok());
-        parsed.insert(key.as_str(), cuts.zip(shades));
-    }
     // Keys of the register, read once and only when some item has no version in force.
     let mut register: Option<std::collections::HashSet<String>> = None;
     let mut results = Vec::with_capacity(req.values.len());
     for item in req.values {
-        let found = parsed.get(item.metric.as_str()).copied().flatten();
+        let found = r.cut_sets.get(&item.metric).copied();
         results.push(match found {
             Some((cuts, shades)) => EvaluateResult::Classified {
                 result: classify(&cuts, shades, item.value),
