@@ -102,6 +102,9 @@ pub enum Command {
     Policy(PolicyCommand),
     /// Classify values against a cut set; prints one JSON object per value per line.
     Classify(classify::ClassifyArgs),
+    /// Print the OpenAPI 3.1 description of /api/v1 (as GET /api/v1/openapi.json serves it;
+    /// docs/openapi.json is this output).
+    Openapi,
 }
 
 #[derive(Subcommand, Debug)]
@@ -267,6 +270,10 @@ pub fn run() -> ExitCode {
     let cli = Cli::parse();
     if let Command::Classify(args) = &cli.command {
         return classify::run(args);
+    }
+    if let Command::Openapi = &cli.command {
+        print!("{}", crate::web::api::openapi::document_text());
+        return ExitCode::SUCCESS;
     }
     init_logging(matches!(cli.command, Command::Serve(_) | Command::Demo(_)));
     let runtime = match tokio::runtime::Builder::new_multi_thread()

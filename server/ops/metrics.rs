@@ -11,7 +11,7 @@ use crate::store::{Actor, Store};
 
 /// A new metric as submitted, before validation. The API deserialises into it; the form
 /// handler fills it from text fields.
-#[derive(Clone, Debug, Default, Deserialize)]
+#[derive(Clone, Debug, Default, Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct NewMetric {
     pub key: String,
@@ -31,7 +31,7 @@ pub struct NewMetric {
 }
 
 /// A change to descriptive fields as submitted; absent fields stay as they are.
-#[derive(Clone, Debug, Default, Deserialize)]
+#[derive(Clone, Debug, Default, Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct MetricEdit {
     pub name: Option<String>,
@@ -41,6 +41,7 @@ pub struct MetricEdit {
     pub data_source: Option<String>,
     /// `null` clears the cadence; absent leaves it.
     #[serde(default, deserialize_with = "present_or_null")]
+    #[schema(value_type = Option<i64>, required = false)]
     pub review_cadence_months: Option<Option<i64>>,
     pub tags: Option<Vec<String>>,
 }

@@ -32,7 +32,7 @@ pub const REASON_MAX: usize = 2_000;
 /// the revision it was written against (a stale one answers 409: someone saved in between).
 /// The content fields repeat [`ContentInput`]'s because serde cannot both flatten a struct
 /// and deny unknown fields.
-#[derive(Clone, Debug, Default, Deserialize)]
+#[derive(Clone, Debug, Default, Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct RevisionInput {
     pub direction: String,

@@ -9,13 +9,13 @@ use super::{Actor, Store, StoreError, StoreResult, WriteTx};
 use crate::domain::metric::{MetricFields, Problems};
 use crate::domain::{MetricKey, Role, Timestamp, Username};
 
-#[derive(Clone, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 pub struct Owner {
     pub username: String,
     pub display_name: String,
 }
 
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Metric {
     #[serde(skip)]
     pub id: i64,
@@ -27,7 +27,9 @@ pub struct Metric {
     pub data_source: String,
     pub review_cadence_months: Option<i64>,
     pub tags: Vec<String>,
+    #[schema(value_type = String)]
     pub created_at: Timestamp,
+    #[schema(value_type = String)]
     pub updated_at: Timestamp,
 }
 
@@ -91,7 +93,7 @@ pub struct MetricFilter {
 }
 
 /// One page of the register and how many metrics match in all.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct MetricPage {
     pub metrics: Vec<Metric>,
     pub total: i64,

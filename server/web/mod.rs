@@ -147,36 +147,47 @@ async fn page_not_found() -> PageError {
     PageError(ApiError::not_found("there is no page at this address"))
 }
 
-fn api_routes(config: &WebConfig) -> Router<AppState> {
+/// The routes under `/api`, each registered with its OpenAPI description, so none can be
+/// served undescribed (see `api::openapi`).
+pub(crate) fn api_router() -> utoipa_axum::router::OpenApiRouter<AppState> {
+    use api::audit as a;
     use api::metrics as m;
     use api::proposals as p;
-    Router::new()
-        .route("/v1/me", get(api::me))
-        .route("/v1/classify", post(api::classify::classify))
-        .route("/v1/metrics", get(m::list).post(m::create))
-        .route("/v1/metrics/{key}", get(m::show).patch(m::edit))
-        .route("/v1/metrics/{key}/proposals", post(p::create))
-        .route("/v1/metrics/{key}/history", get(p::history))
-        .route("/v1/proposals/{id}", get(p::show).put(p::revise))
-        .route("/v1/proposals/{id}/submit", post(p::submit))
-        .route("/v1/proposals/{id}/comments", post(p::comment))
-        .route("/v1/proposals/{id}/reviews", post(p::review))
-        .route("/v1/proposals/{id}/signoff", post(p::signoff))
-        .route("/v1/proposals/{id}/withdraw", post(p::withdraw))
-        .route("/v1/proposals/{id}/reject", post(p::reject))
-        .route("/v1/inbox", get(p::inbox))
-        .route("/v1/published", get(api::published::set))
-        .route("/v1/published.csv", get(api::published::set_csv))
-        .route("/v1/published/changes", get(api::published::changes))
-        .route("/v1/published/{key}", get(api::published::one))
-        .route("/v1/keys", get(api::published::keys))
-        .route("/v1/evaluate", post(api::published::evaluate))
-        .route("/v1/audit", get(api::audit::events))
-        .route("/v1/audit.csv", get(api::audit::events_csv))
-        .route("/v1/audit/verify", get(api::audit::verify))
-        .route("/v1/audit/exceptions", get(api::audit::exceptions))
-        .route("/v1/audit/as-of", get(api::audit::as_of))
-        .route("/v1/audit/metrics/{key}", get(api::audit::timeline))
+    use api::published as pb;
+    use utoipa_axum::routes;
+    utoipa_axum::router::OpenApiRouter::new()
+        .routes(routes!(api::openapi::openapi_json))
+        .routes(routes!(api::me))
+        .routes(routes!(api::classify::classify))
+        .routes(routes!(m::list, m::create))
+        .routes(routes!(m::show, m::edit))
+        .routes(routes!(p::create))
+        .routes(routes!(p::history))
+        .routes(routes!(p::show, p::revise))
+        .routes(routes!(p::submit))
+        .routes(routes!(p::comment))
+        .routes(routes!(p::review))
+        .routes(routes!(p::signoff))
+        .routes(routes!(p::withdraw))
+        .routes(routes!(p::reject))
+        .routes(routes!(p::inbox))
+        .routes(routes!(pb::set))
+        .routes(routes!(pb::set_csv))
+        .routes(routes!(pb::changes))
+        .routes(routes!(pb::one))
+        .routes(routes!(pb::keys))
+        .routes(routes!(pb::evaluate))
+        .routes(routes!(a::events))
+        .routes(routes!(a::events_csv))
+        .routes(routes!(a::verify))
+        .routes(routes!(a::exceptions))
+        .routes(routes!(a::as_of))
+        .routes(routes!(a::timeline))
+}
+
+fn api_routes(config: &WebConfig) -> Router<AppState> {
+    let (router, _) = api_router().split_for_parts();
+    router
         .fallback(api::not_found)
         .method_not_allowed_fallback(api::method_not_allowed)
         .layer(DefaultBodyLimit::max(config.body_limit))

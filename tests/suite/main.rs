@@ -14,6 +14,7 @@ mod demo_data;
 mod diffs;
 mod engine_properties;
 mod engine_rules;
+mod openapi;
 mod pages;
 mod platform;
 mod published;

@@ -7,6 +7,7 @@ use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
 use super::metrics::KeyPath;
+use super::openapi::{AuditView, ErrorBody};
 use crate::domain::{MetricKey, Timestamp};
 use crate::ops::audit::{self, Extract};
 use crate::store::events::EventFilter;
@@ -16,15 +17,23 @@ use crate::web::error::ApiError;
 use crate::web::extract::ApiQuery;
 
 /// Filters of an extract, as query parameters.
-#[derive(Deserialize, Default, Clone)]
+#[derive(Deserialize, Default, Clone, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct ExtractQuery {
+    /// Events after this sequence number (for paging).
     pub after: Option<i64>,
+    /// Most events to return.
     pub limit: Option<i64>,
+    /// Only events about this metric key.
     pub metric: String,
+    /// Only events by this username.
     pub actor: String,
+    /// Only events with this action (docs/events.md).
     pub action: String,
+    /// Only events recorded at or after this time.
     pub from: String,
+    /// Only events recorded before this time.
     pub to: String,
 }
 
@@ -66,6 +75,8 @@ impl ExtractQuery {
 }
 
 /// `GET /api/v1/audit`: a page of events with a summary for checking completeness.
+#[utoipa::path(get, path = "/v1/audit", operation_id = "listEvents", tag = "audit", params(ExtractQuery),
+    responses((status = 200, description = "A page of events with a summary for checking completeness", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
 pub async fn events(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -152,6 +163,8 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
 }
 
 /// `GET /api/v1/audit.csv`.
+#[utoipa::path(get, path = "/v1/audit.csv", operation_id = "listEventsCsv", tag = "audit", params(ExtractQuery),
+    responses((status = 200, description = "The events as RFC 4180 CSV; the summary in response headers", body = String, content_type = "text/csv"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
 pub async fn events_csv(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -171,9 +184,11 @@ pub async fn events_csv(
     Ok((headers, extract_csv(&x)).into_response())
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct VerifyQuery {
+    /// A head kept from earlier, SEQ:HASH, which the record must still contain.
     pub known_head: String,
 }
 
@@ -187,6 +202,8 @@ fn known_head(text: &str) -> Result<Option<(i64, String)>, ApiError> {
 }
 
 /// `GET /api/v1/audit/verify[?known_head=SEQ:HASH]`.
+#[utoipa::path(get, path = "/v1/audit/verify", operation_id = "verifyAuditChain", tag = "audit", params(VerifyQuery),
+    responses((status = 200, description = "Whether the chain holds, and the first broken event if not", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
 pub async fn verify(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -197,6 +214,8 @@ pub async fn verify(
 }
 
 /// `GET /api/v1/audit/exceptions`.
+#[utoipa::path(get, path = "/v1/audit/exceptions", operation_id = "listExceptions", tag = "audit",
+    responses((status = 200, description = "Versions approved without a sign-off, refusals and other exceptions", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
 pub async fn exceptions(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -205,6 +224,9 @@ pub async fn exceptions(
 }
 
 /// `GET /api/v1/audit/metrics/{key}`: why did it move.
+#[utoipa::path(get, path = "/v1/audit/metrics/{key}", operation_id = "getMetricTimeline", tag = "audit",
+    params(("key" = String, Path, description = "Metric key")),
+    responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
 pub async fn timeline(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -213,15 +235,21 @@ pub async fn timeline(
     Ok(Json(audit::timeline(&state.store, caller.user(), key.as_str()).await?).into_response())
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct AsOfQuery {
+    /// Valid time (RFC 3339 or a bare date). Default now.
     pub as_of: String,
+    /// Transaction time. Default now.
     pub known_at: String,
+    /// Only this metric key.
     pub metric: String,
 }
 
 /// `GET /api/v1/audit/as-of?as_of=T&known_at=R[&metric=KEY]`.
+#[utoipa::path(get, path = "/v1/audit/as-of", operation_id = "getVersionsAsOf", tag = "audit", params(AsOfQuery),
+    responses((status = 200, description = "The versions in force at a valid time, as known at a transaction time", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
 pub async fn as_of(
     State(state): State<AppState>,
     caller: ApiCaller,

@@ -6,6 +6,7 @@ use std::collections::BTreeMap;
 use axum::Json;
 use serde::{Deserialize, Serialize};
 
+use super::openapi::{ClassifyResults, ErrorBody};
 use crate::domain::metric::Problems;
 use crate::domain::thresholds::{CutSet, Direction, Shades};
 use crate::engine::{Classification, classify_all};
@@ -16,13 +17,18 @@ use crate::web::extract::ApiJson;
 /// Most values one request may classify.
 pub const MAX_VALUES: usize = 10_000;
 
-#[derive(Deserialize)]
+#[derive(Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ClassifyRequest {
+    /// higher_is_better, lower_is_better or target_band.
     direction: String,
+    /// The four cut points by name.
     cuts: BTreeMap<String, f64>,
+    /// Shades per graded zone, 2 to 5 (default 3).
     #[serde(default)]
     shades: Option<i64>,
+    /// At most 10,000; null is a missing value.
+    #[schema(max_items = 10000)]
     values: Vec<Option<f64>>,
 }
 
@@ -31,6 +37,9 @@ pub struct ClassifyResponse {
     results: Vec<Classification>,
 }
 
+#[utoipa::path(post, path = "/v1/classify", operation_id = "classifyValues", tag = "engine",
+    request_body = ClassifyRequest,
+    responses((status = 200, description = "One classification per value, in order", body = ClassifyResults), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 413, description = "Body too large", body = ErrorBody)))]
 pub async fn classify(
     _caller: ApiCaller,
     ApiJson(req): ApiJson<ClassifyRequest>,

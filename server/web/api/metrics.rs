@@ -6,6 +6,8 @@ use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
+
+use super::openapi::{ErrorBody, MetricDetail};
 use serde_json::json;
 
 use crate::domain::MetricKey;
@@ -33,6 +35,15 @@ impl FromRequestParts<AppState> for KeyPath {
     }
 }
 
+/// `POST /api/v1/metrics`: adds a metric to the register (admins and owners).
+#[utoipa::path(post, path = "/v1/metrics", operation_id = "createMetric", tag = "register",
+    request_body = NewMetric,
+    responses(
+        (status = 201, description = "Created; Location names it", body = metrics::Metric),
+        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody),
+        (status = 409, description = "A metric with this key exists", body = ErrorBody),
+
+    ))]
 pub async fn create(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -48,16 +59,25 @@ pub async fn create(
     Ok(response)
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct ListQuery {
+    /// Text to find in key, name or description.
     q: String,
+    /// Only metrics with this tag.
     tag: String,
+    /// Only metrics this username owns.
     owner: String,
+    /// Page number, from 1.
     page: Option<i64>,
+    /// Metrics per page (default 50).
     per_page: Option<i64>,
 }
 
+/// `GET /api/v1/metrics`: the register, a page at a time.
+#[utoipa::path(get, path = "/v1/metrics", operation_id = "listMetrics", tag = "register", params(ListQuery),
+    responses((status = 200, description = "A page of the register", body = metrics::MetricPage), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
 pub async fn list(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -84,6 +104,10 @@ pub async fn list(
     ))
 }
 
+/// `GET /api/v1/metrics/{key}`: a metric with its version in force.
+#[utoipa::path(get, path = "/v1/metrics/{key}", operation_id = "getMetric", tag = "register",
+    params(("key" = String, Path, description = "Metric key")),
+    responses((status = 200, description = "The metric", body = MetricDetail), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn show(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -104,6 +128,11 @@ pub async fn show(
     Ok(Json(body).into_response())
 }
 
+/// `PATCH /api/v1/metrics/{key}`: changes descriptive fields; absent fields stay.
+#[utoipa::path(patch, path = "/v1/metrics/{key}", operation_id = "editMetric", tag = "register",
+    params(("key" = String, Path, description = "Metric key")),
+    request_body = MetricEdit,
+    responses((status = 200, description = "The metric as changed", body = metrics::Metric), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn edit(
     State(state): State<AppState>,
     caller: ApiCaller,

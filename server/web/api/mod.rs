@@ -3,6 +3,7 @@
 pub mod audit;
 pub mod classify;
 pub mod metrics;
+pub mod openapi;
 pub mod proposals;
 pub mod published;
 
@@ -16,6 +17,8 @@ use crate::domain::Role;
 
 /// `GET /api/v1/me`: who the credentials belong to, and for a browser session the CSRF token
 /// that scripts must send in `X-CSRF-Token`.
+#[utoipa::path(get, path = "/v1/me", operation_id = "getMe", tag = "service",
+    responses((status = 200, description = "The caller", body = openapi::Me), (status = 401, description = "No valid credential", body = openapi::ErrorBody)))]
 pub async fn me(caller: ApiCaller) -> Response {
     let user = caller.user();
     let (via, csrf) = match &caller.0 {

@@ -9,6 +9,7 @@ use serde::Deserialize;
 use serde::de::DeserializeOwned;
 
 use super::metrics::KeyPath;
+use super::openapi::{AuditView, ErrorBody, History, ProposalInput, ProposalView};
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::store::metrics;
@@ -71,6 +72,11 @@ async fn proposal_response(
     Ok(response)
 }
 
+/// `POST /api/v1/metrics/{key}/proposals`: proposes thresholds for a metric (its owners).
+#[utoipa::path(post, path = "/v1/metrics/{key}/proposals", operation_id = "createProposal", tag = "workflow",
+    params(("key" = String, Path, description = "Metric key")),
+    request_body = ProposalInput,
+    responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn create(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -81,6 +87,10 @@ pub async fn create(
     proposal_response(&state, id, StatusCode::CREATED).await
 }
 
+/// `GET /api/v1/proposals/{id}`.
+#[utoipa::path(get, path = "/v1/proposals/{id}", operation_id = "getProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    responses((status = 200, description = "The proposal", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn show(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -89,6 +99,11 @@ pub async fn show(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
+/// `PUT /api/v1/proposals/{id}`: a new revision (drafts and proposals sent back).
+#[utoipa::path(put, path = "/v1/proposals/{id}", operation_id = "reviseProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body = RevisionInput,
+    responses((status = 200, description = "The proposal with its new revision", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn revise(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -99,6 +114,10 @@ pub async fn revise(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
+/// `POST /api/v1/proposals/{id}/submit`: asks for review.
+#[utoipa::path(post, path = "/v1/proposals/{id}/submit", operation_id = "submitProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    responses((status = 200, description = "The proposal, in review", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn submit(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -108,14 +127,20 @@ pub async fn submit(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct CommentInput {
     body: String,
+    /// The cut point the comment is about, by name.
     #[serde(default)]
     cut: Option<String>,
 }
 
+/// `POST /api/v1/proposals/{id}/comments`.
+#[utoipa::path(post, path = "/v1/proposals/{id}/comments", operation_id = "commentOnProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body = CommentInput,
+    responses((status = 201, description = "The proposal with the comment", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn comment(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -133,15 +158,22 @@ pub async fn comment(
     proposal_response(&state, id, StatusCode::CREATED).await
 }
 
-#[derive(Deserialize)]
+#[derive(Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ReviewInput {
+    /// approve or send_back.
     verdict: String,
+    /// The hash of the revision reviewed; a stale one answers 409.
     revision_hash: String,
     #[serde(default)]
     comment: String,
 }
 
+/// `POST /api/v1/proposals/{id}/reviews`: approve or send back a revision (reviewers).
+#[utoipa::path(post, path = "/v1/proposals/{id}/reviews", operation_id = "reviewProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body = ReviewInput,
+    responses((status = 200, description = "The proposal after the review", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn review(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -166,13 +198,20 @@ pub async fn review(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
-#[derive(Deserialize)]
+#[derive(Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct SignoffInput {
+    /// The hash of the revision signed off.
     revision_hash: String,
+    /// The signatory's password, asked again for every sign-off.
     password: String,
 }
 
+/// `POST /api/v1/proposals/{id}/signoff`: leadership's sign-off of a worst-level change.
+#[utoipa::path(post, path = "/v1/proposals/{id}/signoff", operation_id = "signOffProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body = SignoffInput,
+    responses((status = 200, description = "The proposal after the sign-off", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn signoff(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -190,13 +229,18 @@ pub async fn signoff(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ReasonInput {
     #[serde(default)]
     reason: String,
 }
 
+/// `POST /api/v1/proposals/{id}/withdraw`: the author withdraws it; the body is optional.
+#[utoipa::path(post, path = "/v1/proposals/{id}/withdraw", operation_id = "withdrawProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body(content = Option<ReasonInput>, description = "Optional"),
+    responses((status = 200, description = "The proposal, withdrawn", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn withdraw(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -207,6 +251,11 @@ pub async fn withdraw(
     proposal_response(&state, id, StatusCode::OK).await
 }
 
+/// `POST /api/v1/proposals/{id}/reject`: a reviewer or signatory rejects it, with a reason.
+#[utoipa::path(post, path = "/v1/proposals/{id}/reject", operation_id = "rejectProposal", tag = "workflow",
+    params(("id" = i64, Path, description = "Proposal id")),
+    request_body = ReasonInput,
+    responses((status = 200, description = "The proposal, rejected", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
 pub async fn reject(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -218,6 +267,9 @@ pub async fn reject(
 }
 
 /// `GET /api/v1/metrics/{key}/history`: every version, oldest first.
+#[utoipa::path(get, path = "/v1/metrics/{key}/history", operation_id = "getMetricHistory", tag = "workflow",
+    params(("key" = String, Path, description = "Metric key")),
+    responses((status = 200, description = "Every version, oldest first", body = History), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn history(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -229,6 +281,8 @@ pub async fn history(
 }
 
 /// `GET /api/v1/inbox`: what waits for the caller.
+#[utoipa::path(get, path = "/v1/inbox", operation_id = "getInbox", tag = "workflow",
+    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody)))]
 pub async fn inbox(State(state): State<AppState>, caller: ApiCaller) -> Result<Response, ApiError> {
     Ok(Json(flow::inbox(&state.store, caller.user()).await?).into_response())
 }

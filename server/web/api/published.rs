@@ -12,6 +12,7 @@ use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use super::openapi::{ChangeList, ErrorBody, EvaluateResponse, KeyList, PublishedSet};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
 use crate::publish::document::Rendered;
@@ -37,10 +38,13 @@ impl FromRequestParts<AppState> for Reader {
     }
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct TimesQuery {
+    /// Valid time: the set in force then (RFC 3339 or a bare date). Default now.
     as_of: String,
+    /// Transaction time: as the record stood then, before later corrections. Default now.
     known_at: String,
 }
 
@@ -148,6 +152,18 @@ async fn rendered(
 }
 
 /// `GET /api/v1/published[?as_of=T&known_at=R]`.
+#[utoipa::path(get, path = "/v1/published", operation_id = "getPublishedSet", tag = "published",
+    params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
+    responses(
+        (status = 200, description = "The set in force: RFC 8785 canonical JSON, signed", body = PublishedSet, headers(
+            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
+            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
+            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
+            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
+            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
+        )),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+    ))]
 pub async fn set(
     State(state): State<AppState>,
     _reader: Reader,
@@ -159,6 +175,18 @@ pub async fn set(
 }
 
 /// `GET /api/v1/published.csv`.
+#[utoipa::path(get, path = "/v1/published.csv", operation_id = "getPublishedSetCsv", tag = "published",
+    params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
+    responses(
+        (status = 200, description = "The set as RFC 4180 CSV, one row per metric, with a header row", body = String, content_type = "text/csv", headers(
+            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
+            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
+            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
+            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
+            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
+        )),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+    ))]
 pub async fn set_csv(
     State(state): State<AppState>,
     _reader: Reader,
@@ -171,6 +199,19 @@ pub async fn set_csv(
 
 /// `GET /api/v1/published/{key}`: the set narrowed to one metric (its own digest and
 /// signature); 404 when no version of it is in force.
+#[utoipa::path(get, path = "/v1/published/{key}", operation_id = "getPublishedMetric", tag = "published",
+    params(("key" = String, Path, description = "Metric key"), TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
+    responses(
+        (status = 200, description = "The set narrowed to one metric, with its own digest and signature", body = PublishedSet, headers(
+            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
+            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
+            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
+            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
+            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
+        )),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
+    ))]
 pub async fn one(
     State(state): State<AppState>,
     _reader: Reader,
@@ -189,15 +230,23 @@ pub async fn one(
     Ok(send(&headers, &r, false))
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, utoipa::IntoParams)]
 #[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
 pub struct ChangesQuery {
+    /// The earlier set revision.
+    #[param(required = true)]
     from: Option<i64>,
+    /// The later set revision, at most the current one.
+    #[param(required = true)]
     to: Option<i64>,
 }
 
 /// `GET /api/v1/published/changes?from=REV&to=REV`: which metrics moved between two set
 /// revisions, with their old and new cuts.
+#[utoipa::path(get, path = "/v1/published/changes", operation_id = "getPublishedChanges", tag = "published",
+    params(ChangesQuery),
+    responses((status = 200, description = "The metrics whose version changed, with old and new cuts", body = ChangeList), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
 pub async fn changes(
     State(state): State<AppState>,
     _reader: Reader,
@@ -219,6 +268,8 @@ pub async fn changes(
 }
 
 /// `GET /api/v1/keys`: the public keys, current and retired, to verify signatures with.
+#[utoipa::path(get, path = "/v1/keys", operation_id = "listSigningKeys", tag = "published",
+    responses((status = 200, description = "Every signing key, current and retired", body = KeyList), (status = 401, description = "No valid credential", body = ErrorBody)))]
 pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Response, ApiError> {
     let keys = crate::publish::signing::registry(&state.store).await?;
     Ok(Json(json!({"keys": keys})).into_response())
@@ -227,12 +278,14 @@ pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Resp
 /// Most values one evaluate request may carry.
 pub const EVALUATE_MAX: usize = 10_000;
 
-#[derive(Deserialize)]
+#[derive(Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct EvaluateItem {
+    /// Metric key.
     metric: String,
     /// Required, but may be null (a missing value classifies as no_data).
     #[serde(deserialize_with = "number_or_null")]
+    #[schema(required = true)]
     value: Option<f64>,
 }
 
@@ -240,10 +293,13 @@ fn number_or_null<'de, D: serde::Deserializer<'de>>(d: D) -> Result<Option<f64>,
     Option::<f64>::deserialize(d)
 }
 
-#[derive(Deserialize)]
+#[derive(Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct EvaluateRequest {
+    /// At most 10,000.
+    #[schema(max_items = 10000)]
     values: Vec<EvaluateItem>,
+    /// Classify against the set in force then (RFC 3339 or a bare date). Default now.
     #[serde(default)]
     as_of: Option<String>,
 }
@@ -266,6 +322,13 @@ enum EvaluateResult {
 /// `POST /api/v1/evaluate`: classifies values against the set in force (at `as_of`), each
 /// metric's own cut points; an unknown metric or one without a version in force is an error
 /// for that item only.
+#[utoipa::path(post, path = "/v1/evaluate", operation_id = "evaluateValues", tag = "published",
+    request_body = EvaluateRequest,
+    responses(
+        (status = 200, description = "One result per value, in order", body = EvaluateResponse),
+        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 413, description = "More than 10,000 values, or a body over the limit", body = ErrorBody),
+    ))]
 pub async fn evaluate(
     State(state): State<AppState>,
     _reader: Reader,

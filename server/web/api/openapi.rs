@@ -1,0 +1,436 @@
+//! The OpenAPI 3.1 description of `/api/v1`, generated from the handlers' annotations and the
+//! router that serves them (so a route cannot exist without its description), served at
+//! `GET /api/v1/openapi.json` and committed as `docs/openapi.json`.
+//!
+//! Request bodies and most response bodies are described by the types that carry them. The
+//! published set is described by `docs/schema/published-set.schema.json` itself, included
+//! here, so the two cannot disagree. Responses that handlers assemble as JSON values are
+//! described by the schema types below; tests validate real responses against them with a
+//! reference validator, so they cannot drift unnoticed.
+
+use std::collections::BTreeMap;
+use std::sync::OnceLock;
+
+use axum::http::{HeaderValue, header};
+use axum::response::{IntoResponse, Response};
+use serde_json::{Value, json};
+use utoipa::openapi::security::{ApiKey, ApiKeyValue, HttpAuthScheme, HttpBuilder, SecurityScheme};
+use utoipa::{Modify, OpenApi, ToSchema};
+
+/// The committed JSON Schema of the published set.
+const PUBLISHED_SET_SCHEMA: &str = include_str!("../../../docs/schema/published-set.schema.json");
+
+#[derive(OpenApi)]
+#[openapi(
+    info(
+        title = "cutpoints",
+        description = "Agree, sign off and publish the thresholds that decide when a dashboard \
+            metric needs action. Every endpoint but this document needs a credential: a bearer \
+            token (`Authorization: Bearer cpt_...`; read-scope tokens can only read) or a \
+            browser session cookie with its CSRF token in `X-CSRF-Token` on unsafe methods. An \
+            instance serving with `--public-read` lets anyone read the published set, the keys \
+            and evaluate. Errors answer `{\"error\": {\"code\", \"message\", \"fields\"?}}`.\n\n\
+            Where a threshold guards people's safety (clinical, workplace or environmental \
+            metrics), thresholds agreed here do not replace regulatory limits: defer to local \
+            codes and licensed practice.",
+        license(name = "Proprietary"),
+    ),
+    modifiers(&Security),
+    security(("bearer" = []), ("session" = [])),
+    tags(
+        (name = "register", description = "Metrics and who owns them"),
+        (name = "workflow", description = "Proposals, reviews, sign-off and versions"),
+        (name = "published", description = "The approved set, for dashboards and pipelines"),
+        (name = "audit", description = "The tamper-evident event record"),
+        (name = "engine", description = "Classifying values against cut points"),
+        (name = "service", description = "About the caller and this description"),
+    )
+)]
+struct ApiDoc;
+
+struct Security;
+
+impl Modify for Security {
+    fn modify(&self, openapi: &mut utoipa::openapi::OpenApi) {
+        let components = openapi.components.get_or_insert_with(Default::default);
+        components.add_security_scheme(
+            "bearer",
+            SecurityScheme::Http(
+                HttpBuilder::new()
+                    .scheme(HttpAuthScheme::Bearer)
+                    .description(Some(
+                        "An API token from `cutpoints token issue` or the admin pages",
+                    ))
+                    .build(),
+            ),
+        );
+        components.add_security_scheme(
+            "session",
+            SecurityScheme::ApiKey(ApiKey::Cookie(ApiKeyValue::with_description(
+                super::super::auth::SESSION_COOKIE,
+                "A browser session from /signin; unsafe methods also need X-CSRF-Token",
+            ))),
+        );
+    }
+}
+
+/// The description of everything the router serves under `/api`, as served.
+pub fn document() -> &'static Value {
+    static DOCUMENT: OnceLock<Value> = OnceLock::new();
+    DOCUMENT.get_or_init(|| {
+        let (_, openapi) = super::super::api_router().split_for_parts();
+        finish(openapi)
+    })
+}
+
+/// The document as served and committed: pretty-printed JSON and a final newline.
+pub fn document_text() -> String {
+    let mut text = serde_json::to_string_pretty(document()).expect("a JSON value prints");
+    text.push('\n');
+    text
+}
+
+/// Puts the paths under `/api`, where the router is nested, and adds the published set's
+/// JSON Schema as components.
+fn finish(openapi: utoipa::openapi::OpenApi) -> Value {
+    let mut doc = serde_json::to_value(ApiDoc::openapi().merge_from(openapi))
+        .expect("an OpenAPI document serialises");
+    let paths: BTreeMap<String, Value> = doc["paths"]
+        .as_object()
+        .map(|p| {
+            p.iter()
+                .map(|(k, v)| (format!("/api{k}"), v.clone()))
+                .collect()
+        })
+        .unwrap_or_default();
+    doc["paths"] = json!(paths);
+    let schemas = doc["components"]["schemas"]
+        .as_object_mut()
+        .expect("the document has component schemas");
+    for (name, schema) in published_set_components() {
+        schemas.insert(name, schema);
+    }
+    doc
+}
+
+/// The published set's JSON Schema as OpenAPI components: the document itself as
+/// `PublishedSet`, each of its `$defs` as `PublishedSet` + the name, capitalised, with the
+/// references pointed at them.
+fn published_set_components() -> Vec<(String, Value)> {
+    fn component(def: &str) -> String {
+        let mut chars = def.chars();
+        let first = chars.next().map(|c| c.to_ascii_uppercase());
+        format!(
+            "PublishedSet{}{}",
+            first.into_iter().collect::<String>(),
+            chars.as_str()
+        )
+    }
+    fn repoint(v: &mut Value) {
+        match v {
+            Value::Object(map) => {
+                if let Some(Value::String(r)) = map.get_mut("$ref")
+                    && let Some(def) = r.strip_prefix("#/$defs/")
+                {
+                    *r = format!("#/components/schemas/{}", component(def));
+                }
+                map.values_mut().for_each(repoint);
+            }
+            Value::Array(items) => items.iter_mut().for_each(repoint),
+            _ => {}
+        }
+    }
+    let mut root: Value =
+        serde_json::from_str(PUBLISHED_SET_SCHEMA).expect("the committed schema is JSON");
+    let map = root.as_object_mut().expect("the schema is an object");
+    map.remove("$schema");
+    let id = map.remove("$id");
+    let defs = map.remove("$defs").unwrap_or_else(|| json!({}));
+    if let Some(Value::String(id)) = id {
+        map.insert(
+            "description".into(),
+            json!(format!(
+                "{} (JSON Schema {id}, docs/schema/published-set.schema.json)",
+                map["description"].as_str().unwrap_or_default()
+            )),
+        );
+    }
+    let mut out = vec![("PublishedSet".to_string(), root)];
+    for (name, def) in defs.as_object().into_iter().flatten() {
+        out.push((component(name), def.clone()));
+    }
+    for (_, schema) in &mut out {
+        repoint(schema);
+    }
+    out
+}
+
+/// `GET /api/v1/openapi.json`: this description. Needs no credential.
+#[utoipa::path(
+    get,
+    path = "/v1/openapi.json", operation_id = "getOpenApi",
+    tag = "service",
+    security(()),
+    responses((status = 200, description = "The OpenAPI 3.1 description of /api/v1", content_type = "application/json"))
+)]
+pub async fn openapi_json() -> Response {
+    static TEXT: OnceLock<bytes::Bytes> = OnceLock::new();
+    let body = TEXT.get_or_init(|| bytes::Bytes::from(document_text()));
+    (
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("application/json"),
+        )],
+        body.clone(),
+    )
+        .into_response()
+}
+
+// Schemas of responses that handlers assemble as JSON values. Tests validate real responses
+// against these.
+
+/// An error. `fields` lists each invalid input field with what is wrong with it.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ErrorBody {
+    error: ErrorDetail,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ErrorDetail {
+    /// A stable code: bad_request, invalid, unauthorized, forbidden, not_found, conflict,
+    /// too_large, too_many_requests, ...
+    code: String,
+    message: String,
+    #[schema(required = false)]
+    fields: Option<Vec<FieldProblem>>,
+}
+
+/// What is wrong with one input field.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct FieldProblem {
+    field: String,
+    message: String,
+}
+
+/// Who the credentials belong to.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct Me {
+    username: String,
+    display_name: String,
+    roles: Vec<String>,
+    /// `session`, or `token (read scope)` / `token (write scope)`.
+    credential: String,
+    /// For a browser session, the token scripts send in `X-CSRF-Token`; null for tokens.
+    csrf_token: Option<String>,
+}
+
+/// Where a value falls.
+#[derive(ToSchema, serde::Serialize)]
+#[schema(rename_all = "snake_case")]
+#[allow(dead_code)]
+pub enum Zone {
+    Critical,
+    Intervene,
+    Steady,
+    Outperform,
+    Stretch,
+    NoData,
+}
+
+/// Which side of a target band a value left it on.
+#[derive(ToSchema, serde::Serialize)]
+#[schema(rename_all = "snake_case")]
+#[allow(dead_code)]
+pub enum BandSide {
+    Low,
+    High,
+}
+
+/// The engine's answer for one value (docs/engine.md). A missing value is `no_data` with
+/// null severity, shade and signal.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct Classification {
+    value: Option<f64>,
+    zone: Zone,
+    /// 0 to 1 within intervene and outperform; 1 in critical and stretch; 0 in steady.
+    severity: Option<f64>,
+    #[schema(minimum = 0)]
+    shade: Option<u8>,
+    /// Negative on the bad side, positive on the good side, 0 in steady.
+    signal: Option<i8>,
+    /// Present for target_band values outside steady.
+    #[schema(required = false)]
+    side: Option<BandSide>,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ClassifyResults {
+    /// One per value, in order.
+    results: Vec<Classification>,
+}
+
+/// One value's answer from evaluate: a classification, or an error for this item only.
+#[derive(ToSchema, serde::Serialize)]
+#[serde(untagged)]
+#[allow(dead_code)]
+pub enum EvaluateResult {
+    Classified(EvaluateClassified),
+    Failed(EvaluateFailed),
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct EvaluateClassified {
+    metric: String,
+    value: Option<f64>,
+    zone: Zone,
+    severity: Option<f64>,
+    #[schema(minimum = 0)]
+    shade: Option<u8>,
+    signal: Option<i8>,
+    #[schema(required = false)]
+    side: Option<BandSide>,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct EvaluateFailed {
+    metric: String,
+    value: Option<f64>,
+    /// `unknown_metric` or `no_version`.
+    error: ErrorDetail,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct EvaluateResponse {
+    /// The set revision the values were classified against.
+    set_revision: i64,
+    /// That set's `meta.digest`.
+    digest: String,
+    /// Present when the request named one.
+    #[schema(required = false)]
+    as_of: Option<String>,
+    results: Vec<EvaluateResult>,
+}
+
+/// A signing key, current or retired.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct PublicKey {
+    /// `ed25519-` and the first 16 hex digits of the SHA-256 of the raw key.
+    key_id: String,
+    /// `Ed25519`.
+    algorithm: String,
+    /// The raw 32-byte Ed25519 public key (RFC 8032), base64url without padding.
+    public_key: String,
+    /// `current` or `retired`.
+    status: String,
+    created_at: String,
+    retired_at: Option<String>,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct KeyList {
+    keys: Vec<PublicKey>,
+}
+
+/// A version as a change list shows it.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ChangeSide {
+    version: i64,
+    direction: String,
+    /// The four cut points by name.
+    cuts: BTreeMap<String, f64>,
+    effective_from: String,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct Change {
+    metric: String,
+    /// `added`, `changed` or `removed`.
+    change: String,
+    old: Option<ChangeSide>,
+    new: Option<ChangeSide>,
+}
+
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ChangeList {
+    from: i64,
+    to: i64,
+    changes: Vec<Change>,
+}
+
+/// Stands in for the published set's JSON Schema, which replaces it in the document.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct PublishedSet {}
+
+/// A proposal with its revisions, diffs, reviews, comments and what the caller may do next
+/// (docs/workflow.md).
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ProposalView {
+    id: i64,
+    metric: String,
+    state: String,
+}
+
+/// A metric's versions, oldest first.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct History {
+    metric: String,
+    #[schema(value_type = Vec<Object>)]
+    versions: Vec<Value>,
+}
+
+/// A metric with the version in force, the scheduled one and the open proposal, if any.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct MetricDetail {
+    key: String,
+    name: String,
+    #[schema(value_type = Option<Object>)]
+    version_in_force: Option<Value>,
+    #[schema(value_type = Option<Object>)]
+    scheduled_version: Option<Value>,
+    #[schema(value_type = Option<Object>)]
+    open_proposal: Option<Value>,
+}
+
+/// A structured view the audit pages also show (docs/events.md, docs/audit-chain.md).
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct AuditView {}
+
+/// The proposal content fields, as `POST /api/v1/metrics/{key}/proposals` takes them.
+#[derive(ToSchema, serde::Serialize)]
+#[allow(dead_code)]
+pub struct ProposalInput {
+    /// higher_is_better, lower_is_better or target_band.
+    direction: String,
+    /// The four cut points by name: critical, intervene, outperform, stretch; for a band
+    /// critical_low, intervene_low, intervene_high, critical_high.
+    cuts: BTreeMap<String, f64>,
+    /// Shades per graded zone, 2 to 5 (default 3).
+    #[schema(required = false)]
+    shades: Option<i64>,
+    /// Defaults to the metric's unit.
+    #[schema(required = false)]
+    unit: Option<String>,
+    /// RFC 3339 time or bare date; absent or null means on approval.
+    #[schema(required = false)]
+    effective_from: Option<String>,
+    rationale: String,
+}
