@@ -9,8 +9,8 @@ use axum::http::HeaderName;
 use tokio::net::TcpListener;
 
 use super::{
-    AuditCommand, Command, DemoArgs, ExportArgs, KeysCommand, PolicyCommand, ServeArgs,
-    TokenCommand, UserCommand,
+    AuditCommand, Command, DemoArgs, ExportArgs, KeysCommand, ObservationsCommand, PolicyCommand,
+    ServeArgs, TokenCommand, UserCommand,
 };
 use crate::domain::Timestamp;
 use crate::ops::OpError;
@@ -37,6 +37,7 @@ pub async fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::User(cmd) => user(cmd).await,
         Command::Token(cmd) => token(cmd).await,
         Command::Policy(cmd) => policy(cmd).await,
+        Command::Observations(cmd) => observations(cmd).await,
         Command::Export(args) => export(args).await,
         Command::Keys(cmd) => keys(cmd).await,
         Command::Audit(_) => unreachable!("handled above"),
@@ -341,6 +342,85 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
             println!("revoked token {} ({}) of {}", t.id, t.prefix, t.username);
         }
     }
+    Ok(())
+}
+
+async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
+    use crate::ops::evidence::{self, Format, Uploader};
+    use crate::store::observations::Mode;
+    use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+    use sha2::{Digest, Sha256};
+    let ObservationsCommand::Import {
+        metric,
+        mode,
+        quiet,
+        file,
+        db,
+    } = cmd;
+    let mode = if mode == "replace" {
+        Mode::Replace
+    } else {
+        Mode::Merge
+    };
+    let store = Store::open(&db.database_url).await?;
+    // The metric first, so a wrong key is said before a large file is read.
+    crate::store::metrics::get(&store, &metric)
+        .await
+        .map_err(|e| explain(e.into()))?;
+    let bytes = std::fs::read(&file).with_context(|| format!("reading {}", file.display()))?;
+    let bar = ProgressBar::new(bytes.len() as u64);
+    if quiet {
+        bar.set_draw_target(ProgressDrawTarget::hidden());
+    }
+    bar.set_style(
+        ProgressStyle::with_template("{msg:>8} [{bar:40}] {percent:>3}% {pos}/{len}")
+            .expect("a valid template")
+            .progress_chars("=> "),
+    );
+    bar.set_message("reading");
+    let sha256 = hex::encode(Sha256::digest(&bytes));
+    let parsed = {
+        let bar = bar.clone();
+        tokio::task::spawn_blocking(move || {
+            evidence::parse(Format::Csv, &bytes, |read| bar.set_position(read))
+        })
+        .await?
+    };
+    let rows = match parsed {
+        Ok(rows) => rows,
+        Err(problems) => {
+            bar.finish_and_clear();
+            for p in &problems {
+                eprintln!("{}: {}", file.display(), p.describe());
+            }
+            anyhow::bail!(
+                "{} problem{} in {}; nothing was changed",
+                problems.len(),
+                if problems.len() == 1 { "" } else { "s" },
+                file.display()
+            );
+        }
+    };
+    bar.set_message("writing");
+    bar.set_length(rows.len() as u64);
+    bar.set_position(0);
+    let report = evidence::store_rows(&store, Uploader::Cli, &metric, mode, &rows, &sha256, |n| {
+        bar.set_position(n)
+    })
+    .await
+    .map_err(explain)?;
+    bar.finish_and_clear();
+    println!(
+        "{}: {} rows ({} added, {} replaced, {} removed); {} periods stored; sha256 {}; event {}",
+        report.metric,
+        report.rows,
+        report.added,
+        report.replaced,
+        report.removed,
+        report.total,
+        report.sha256,
+        report.event_seq
+    );
     Ok(())
 }
 

@@ -100,6 +100,9 @@ pub enum Command {
     /// Change the approval policy (recorded in the event record).
     #[command(subcommand)]
     Policy(PolicyCommand),
+    /// Manage metrics' history (the evidence for their thresholds).
+    #[command(subcommand)]
+    Observations(ObservationsCommand),
     /// Classify values against a cut set; prints one JSON object per value per line.
     Classify(classify::ClassifyArgs),
     /// Print the OpenAPI 3.1 description of /api/v1 (as GET /api/v1/openapi.json serves it;
@@ -207,6 +210,28 @@ pub enum AuditCommand {
         /// fails if the chain no longer contains it, which reveals a cut and re-forged tail.
         #[arg(long, env = "CUTPOINTS_KNOWN_HEAD")]
         known_head: Option<String>,
+        #[command(flatten)]
+        db: DatabaseArgs,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+pub enum ObservationsCommand {
+    /// Import a metric's history from an RFC 4180 CSV file (period start, value; an optional
+    /// header row). Nothing is stored if any line is bad; every bad line is listed.
+    Import {
+        /// The metric's key.
+        #[arg(long, env = "CUTPOINTS_METRIC")]
+        metric: String,
+        /// merge: add new periods and replace the values of periods already stored;
+        /// replace: the file becomes the whole history.
+        #[arg(long, env = "CUTPOINTS_MODE", default_value = "merge", value_parser = ["merge", "replace"])]
+        mode: String,
+        /// Do not draw a progress bar (it is drawn only on a terminal anyway).
+        #[arg(long)]
+        quiet: bool,
+        /// The CSV file.
+        file: std::path::PathBuf,
         #[command(flatten)]
         db: DatabaseArgs,
     },

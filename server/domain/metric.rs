@@ -18,6 +18,13 @@ pub struct FieldProblem {
 pub struct Problems(pub Vec<FieldProblem>);
 
 impl Problems {
+    /// One problem with one field.
+    pub fn single(field: impl Into<String>, message: impl Into<String>) -> Problems {
+        let mut p = Problems::default();
+        p.add(field, message);
+        p
+    }
+
     pub fn add(&mut self, field: impl Into<String>, message: impl Into<String>) {
         self.0.push(FieldProblem {
             field: field.into(),

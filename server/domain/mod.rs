@@ -4,6 +4,7 @@
 pub mod key;
 pub mod metric;
 pub mod number;
+pub mod observations;
 pub mod people;
 pub mod proposal;
 pub mod text;

@@ -194,6 +194,33 @@ impl Grades {
         &self.shade
     }
 
+    /// Where the `i`th value fell: 0 critical, 1 intervene, 2 steady, 3 outperform, 4 stretch;
+    /// for a band 0 and 1 are the low side's critical and intervene, 3 and 4 the high side's.
+    /// Two values graded against one set have the same status exactly when their places match.
+    pub fn place(&self, i: usize) -> u8 {
+        self.place[i]
+    }
+
+    /// The signal (signed shade) of the `i`th value.
+    pub fn signal(&self, i: usize) -> i8 {
+        let band = self.direction == Direction::TargetBand;
+        let shade = self.shade[i] as i8;
+        match self.place[i] {
+            2 => 0,
+            3 | 4 if !band => shade,
+            _ => -shade,
+        }
+    }
+
+    /// The side of a band the `i`th value left it on (intervene and critical of a band only).
+    pub fn side(&self, i: usize) -> Option<Side> {
+        match (self.place[i], self.direction == Direction::TargetBand) {
+            (0 | 1, true) => Some(Side::Low),
+            (3 | 4, true) => Some(Side::High),
+            _ => None,
+        }
+    }
+
     /// The zone of the `i`th value.
     pub fn zone(&self, i: usize) -> Zone {
         let band = self.direction == Direction::TargetBand;
@@ -208,26 +235,13 @@ impl Grades {
 
     /// What [`classify`] says about the `i`th value, which was `value`.
     pub fn classification(&self, i: usize, value: f64) -> Classification {
-        let place = self.place[i];
-        let band = self.direction == Direction::TargetBand;
-        let shade = self.shade[i];
-        let signal = match place {
-            2 => 0,
-            3 | 4 if !band => shade as i8,
-            _ => -(shade as i8),
-        };
-        let side = match place {
-            0 | 1 if band => Some(Side::Low),
-            3 | 4 if band => Some(Side::High),
-            _ => None,
-        };
         Classification {
             value: Some(value),
             zone: self.zone(i),
             severity: Some(self.severity[i]),
-            shade: Some(shade),
-            signal: Some(signal),
-            side,
+            shade: Some(self.shade[i]),
+            signal: Some(self.signal(i)),
+            side: self.side(i),
         }
     }
 }

@@ -2,6 +2,7 @@
 //! call of each action, shared by the HTTP API, the pages and the command line. Knows no HTTP.
 
 pub mod audit;
+pub mod evidence;
 pub mod metrics;
 pub mod proposals;
 pub mod publication;
@@ -19,6 +20,9 @@ pub enum OpError {
     Forbidden(String),
     #[error("{}", .0.first_message())]
     Invalid(Problems),
+    /// An upload with bad lines; nothing of it was stored.
+    #[error("{} bad line(s) in the upload; nothing was changed", .0.len())]
+    InvalidRows(Vec<crate::domain::observations::RowProblem>),
     /// The right person at the wrong time: wrong state, stale revision, a repeat.
     #[error("{0}")]
     Conflict(String),

@@ -7,6 +7,7 @@
 
 pub mod events;
 pub mod metrics;
+pub mod observations;
 pub mod policy;
 pub mod proposals;
 pub mod sessions;

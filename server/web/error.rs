@@ -18,6 +18,8 @@ pub struct ApiError {
     pub code: &'static str,
     pub message: String,
     pub fields: Option<Problems>,
+    /// For uploads: each bad line or item and why.
+    pub rows: Option<Vec<crate::domain::observations::RowProblem>>,
     pub retry_after: Option<u64>,
 }
 
@@ -28,6 +30,7 @@ impl ApiError {
             code,
             message: message.into(),
             fields: None,
+            rows: None,
             retry_after: None,
         }
     }
@@ -115,6 +118,20 @@ impl From<OpError> for ApiError {
         match e {
             OpError::Forbidden(m) => ApiError::forbidden(m),
             OpError::Invalid(p) => ApiError::invalid(p),
+            OpError::InvalidRows(rows) => ApiError {
+                rows: Some(rows.clone()),
+                ..ApiError::new(
+                    StatusCode::BAD_REQUEST,
+                    "invalid_rows",
+                    format!(
+                        "{} in the upload; nothing was changed",
+                        match rows.len() {
+                            1 => "1 problem".to_string(),
+                            n => format!("{n} problems"),
+                        }
+                    ),
+                )
+            },
             OpError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
             OpError::BadCredentials(m) => ApiError::unauthorized(m),
             OpError::Throttled(seconds) => ApiError::throttled(seconds),
@@ -128,6 +145,9 @@ impl IntoResponse for ApiError {
         let mut body = json!({"error": {"code": self.code, "message": self.message}});
         if let Some(fields) = &self.fields {
             body["error"]["fields"] = json!(fields);
+        }
+        if let Some(rows) = &self.rows {
+            body["error"]["rows"] = json!(rows);
         }
         let mut response = (self.status, Json(body)).into_response();
         if let Some(seconds) = self.retry_after {

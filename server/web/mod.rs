@@ -5,6 +5,7 @@ pub mod api;
 pub mod auth;
 pub mod error;
 pub mod extract;
+pub mod history_chart;
 pub mod pages;
 pub mod svg;
 pub mod templates;
@@ -38,6 +39,8 @@ pub struct WebConfig {
     pub body_limit: usize,
     /// Anyone may read the published set, the keys and evaluate, without credentials.
     pub public_read: bool,
+    /// Largest history upload (CSV or JSON) the API and pages accept.
+    pub upload_limit: usize,
 }
 
 impl Default for WebConfig {
@@ -47,6 +50,7 @@ impl Default for WebConfig {
             forwarded_header: None,
             body_limit: 2 * 1024 * 1024,
             public_read: false,
+            upload_limit: 64 * 1024 * 1024,
         }
     }
 }
@@ -151,6 +155,7 @@ async fn page_not_found() -> PageError {
 /// served undescribed (see `api::openapi`).
 pub(crate) fn api_router() -> utoipa_axum::router::OpenApiRouter<AppState> {
     use api::audit as a;
+    use api::evidence as e;
     use api::metrics as m;
     use api::proposals as p;
     use api::published as pb;
@@ -171,6 +176,10 @@ pub(crate) fn api_router() -> utoipa_axum::router::OpenApiRouter<AppState> {
         .routes(routes!(p::withdraw))
         .routes(routes!(p::reject))
         .routes(routes!(p::inbox))
+        .routes(routes!(e::upload, e::observations))
+        .routes(routes!(e::show))
+        .routes(routes!(e::proposal))
+        .routes(routes!(e::version))
         .routes(routes!(pb::set))
         .routes(routes!(pb::set_csv))
         .routes(routes!(pb::changes))

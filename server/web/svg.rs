@@ -20,7 +20,7 @@ pub struct StripRow<'a> {
 }
 
 /// Width of every picture in viewBox units; the height grows with the rows.
-const WIDTH: f64 = 720.0;
+pub(crate) const WIDTH: f64 = 720.0;
 /// Room left and right of the axis, so labels at its ends stay inside the picture.
 const MARGIN: f64 = 24.0;
 const PLOT_LEFT: f64 = MARGIN;
@@ -33,16 +33,16 @@ const CAPTION_SIZE: f64 = 13.0;
 /// Space kept between a label and its neighbours.
 const LABEL_GAP: f64 = 6.0;
 /// Near-black for text on light fills and for lines.
-const INK: &str = "#1a1a1a";
-const WHITE: &str = "#ffffff";
+pub(crate) const INK: &str = "#1a1a1a";
+pub(crate) const WHITE: &str = "#ffffff";
 /// Light grey for the tick lines behind the strips.
-const GRID: &str = "#d9d9d9";
+pub(crate) const GRID: &str = "#d9d9d9";
 
 /// Fill and text colour of a zone. The fills are the ColorBrewer PuOr diverging palette: purple
 /// and orange stay apart under the common colour-vision deficiencies, unlike red and green. Each
 /// text colour is the one of white and near-black with the higher WCAG 2 contrast ratio (at
 /// least 4.5:1 on every fill).
-fn colours(zone: Zone) -> (&'static str, &'static str) {
+pub(crate) fn colours(zone: Zone) -> (&'static str, &'static str) {
     match zone {
         Zone::Critical => ("#b35806", WHITE),
         Zone::Intervene => ("#f1a340", INK),
@@ -55,7 +55,7 @@ fn colours(zone: Zone) -> (&'static str, &'static str) {
 }
 
 /// The five zones from low values (left) to high values (right).
-fn zones_left_to_right(direction: Direction) -> [Zone; 5] {
+pub(crate) fn zones_left_to_right(direction: Direction) -> [Zone; 5] {
     use Zone::*;
     match direction {
         Direction::HigherIsBetter => [Critical, Intervene, Steady, Outperform, Stretch],
@@ -69,7 +69,7 @@ fn zones_left_to_right(direction: Direction) -> [Zone; 5] {
 /// In every direction the line belongs to the zone farther from `steady` (DESIGN.md: reaching a
 /// line counts as crossing it), so the two lowest lines belong to the zone on their left and the
 /// two highest to the zone on their right.
-fn ascending_cuts(cuts: &CutSet) -> [(&'static str, f64); 4] {
+pub(crate) fn ascending_cuts(cuts: &CutSet) -> [(&'static str, f64); 4] {
     let mut named = cuts.named();
     if cuts.direction() == Direction::LowerIsBetter {
         named.reverse();
@@ -197,7 +197,7 @@ fn x_of(axis: &Axis, value: f64) -> f64 {
 }
 
 /// A coordinate as attribute text; a tenth of a unit is finer than any screen shows.
-fn at(v: f64) -> String {
+pub(crate) fn at(v: f64) -> String {
     format!("{v:.1}")
 }
 
@@ -225,7 +225,7 @@ pub fn escape(text: &str) -> String {
 }
 
 /// Writes a `<text>` element; the content is escaped here so that no caller can forget it.
-fn text(out: &mut String, x: f64, y: f64, attributes: &str, content: &str) {
+pub(crate) fn text(out: &mut String, x: f64, y: f64, attributes: &str, content: &str) {
     let _ = writeln!(
         out,
         r#"<text x="{}" y="{}" {attributes}>{}</text>"#,
@@ -235,7 +235,7 @@ fn text(out: &mut String, x: f64, y: f64, attributes: &str, content: &str) {
     );
 }
 
-fn line(out: &mut String, (x1, y1): (f64, f64), (x2, y2): (f64, f64), attributes: &str) {
+pub(crate) fn line(out: &mut String, (x1, y1): (f64, f64), (x2, y2): (f64, f64), attributes: &str) {
     let _ = writeln!(
         out,
         r#"<line x1="{}" y1="{}" x2="{}" y2="{}" {attributes}/>"#,
@@ -248,7 +248,7 @@ fn line(out: &mut String, (x1, y1): (f64, f64), (x2, y2): (f64, f64), attributes
 
 /// Width of `text` at `size`, estimated: SVG text cannot be measured on the server, and most
 /// sans-serif characters are narrower than 0.6 em.
-fn text_width(text: &str, size: f64) -> f64 {
+pub(crate) fn text_width(text: &str, size: f64) -> f64 {
     text.chars().count() as f64 * size * 0.6
 }
 
@@ -396,7 +396,7 @@ fn draw_axis(out: &mut String, axis: &Axis, unit: &str, y: f64) -> f64 {
 
 /// The `i`-th zone from the left in words, e.g. "intervene above 50 and at or below 70": it
 /// lies between the ascending cuts `i - 1` and `i`, and the outer zones are open-ended.
-fn describe_zone(zone: Zone, i: usize, cuts: &[(&str, f64); 4]) -> String {
+pub(crate) fn describe_zone(zone: Zone, i: usize, cuts: &[(&str, f64); 4]) -> String {
     let mut bounds = Vec::new();
     if i > 0 {
         // The two highest lines belong to the zone on their right (see `ascending_cuts`).

@@ -14,6 +14,8 @@ mod demo_data;
 mod diffs;
 mod engine_properties;
 mod engine_rules;
+mod evidence;
+mod history_chart;
 mod openapi;
 mod pages;
 mod platform;

@@ -59,6 +59,11 @@ impl Team {
         self.tokens.lock().unwrap().insert(who.to_string(), token);
     }
 
+    /// The write token of a person of the cast.
+    pub fn token_of(&self, who: &str) -> String {
+        self.tokens.lock().unwrap()[who].clone()
+    }
+
     pub async fn call(
         &self,
         who: &str,

@@ -2,6 +2,7 @@
 
 pub mod audit;
 pub mod classify;
+pub mod evidence;
 pub mod metrics;
 pub mod openapi;
 pub mod proposals;

@@ -1,0 +1,301 @@
+//! A metric's history as uploaded: one value per period start, read from RFC 4180 CSV or JSON
+//! and checked whole, so that an upload is taken entirely or not at all, with every bad line
+//! named.
+
+use std::collections::HashMap;
+
+use serde::Serialize;
+
+use super::Timestamp;
+
+/// One period of history.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct Observation {
+    pub period_start: Timestamp,
+    pub value: f64,
+}
+
+/// What is wrong with one line of a CSV upload (`line`, counted from 1 like an editor) or one
+/// item of a JSON upload (`item`, counted from 1).
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
+pub struct RowProblem {
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub line: Option<u64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub item: Option<u64>,
+    pub reason: String,
+}
+
+impl RowProblem {
+    fn line(line: u64, reason: impl Into<String>) -> RowProblem {
+        RowProblem {
+            line: Some(line),
+            item: None,
+            reason: reason.into(),
+        }
+    }
+
+    fn item(item: u64, reason: impl Into<String>) -> RowProblem {
+        RowProblem {
+            line: None,
+            item: Some(item),
+            reason: reason.into(),
+        }
+    }
+
+    /// "line 3: ..." or "item 3: ...".
+    pub fn describe(&self) -> String {
+        match (self.line, self.item) {
+            (Some(l), _) => format!("line {l}: {}", self.reason),
+            (_, Some(i)) => format!("item {i}: {}", self.reason),
+            _ => self.reason.clone(),
+        }
+    }
+}
+
+/// The period start of a field: an RFC 3339 time (any offset, stored in UTC) or a bare date,
+/// which means 00:00:00Z.
+fn period(text: &str) -> Result<Timestamp, String> {
+    if text.is_empty() {
+        return Err("missing period start".into());
+    }
+    Timestamp::parse(text).map_err(|_| {
+        format!(
+            "unparseable date {text:?}: expected an RFC 3339 date such as 2026-03-01 or a time \
+             such as 2026-03-01T09:30:00Z"
+        )
+    })
+}
+
+/// A value field: a finite decimal number.
+fn value(text: &str) -> Result<f64, String> {
+    if text.is_empty() {
+        return Err("missing value".into());
+    }
+    match text.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        Ok(_) => Err(format!(
+            "non-finite value {text:?}: values must be finite numbers"
+        )),
+        Err(_) => Err(format!("value {text:?} is not a number")),
+    }
+}
+
+/// Keeps the first line of each period and names the later ones.
+#[derive(Default)]
+struct Periods {
+    first_at: HashMap<Timestamp, u64>,
+}
+
+impl Periods {
+    fn check(&mut self, at: Timestamp, position: u64, what: &str) -> Result<(), String> {
+        match self.first_at.get(&at) {
+            Some(first) => Err(format!(
+                "duplicate period {at} (first given on {what} {first})"
+            )),
+            None => {
+                self.first_at.insert(at, position);
+                Ok(())
+            }
+        }
+    }
+}
+
+/// Line numbers as an editor counts them, from byte offsets of record starts (which may
+/// point at the line end of the record before). Offsets only grow, so counting is linear.
+struct LineCounter<'a> {
+    bytes: &'a [u8],
+    cursor: usize,
+    line: u64,
+}
+
+impl<'a> LineCounter<'a> {
+    fn new(bytes: &'a [u8]) -> Self {
+        LineCounter {
+            bytes,
+            cursor: 0,
+            line: 1,
+        }
+    }
+
+    /// The line a record starting at `byte` begins on.
+    fn at(&mut self, byte: u64) -> u64 {
+        let mut start = (byte as usize).min(self.bytes.len());
+        while start < self.bytes.len() && matches!(self.bytes[start], b'\r' | b'\n') {
+            start += 1;
+        }
+        if start > self.cursor {
+            let newlines = self.bytes[self.cursor..start]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count();
+            self.line += newlines as u64;
+            self.cursor = start;
+        }
+        self.line
+    }
+}
+
+/// Reads a CSV upload: two columns, period start and value, with an optional header row (a
+/// first line neither of whose fields reads as its column's type). Periods may come in any
+/// order; a period may appear once. `progress` is told how many bytes have been read, now and
+/// then, for large files.
+pub fn from_csv(
+    bytes: &[u8],
+    mut progress: impl FnMut(u64),
+) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .trim(csv::Trim::All)
+        .from_reader(bytes);
+    let mut out = Vec::new();
+    let mut problems = Vec::new();
+    let mut periods = Periods::default();
+    let mut record = csv::ByteRecord::new();
+    let mut first = true;
+    let mut records = 0u64;
+    let mut lines = LineCounter::new(bytes);
+    loop {
+        let line = lines.at(reader.position().byte());
+        match reader.read_byte_record(&mut record) {
+            Ok(false) => break,
+            Ok(true) => {}
+            Err(e) => {
+                let at = e.position().map_or(line, |p| lines.at(p.byte()));
+                problems.push(RowProblem::line(at, format!("not CSV: {e}")));
+                // An unterminated quote swallows the rest; nothing after it can be read.
+                if matches!(e.kind(), csv::ErrorKind::Io(_)) {
+                    break;
+                }
+                continue;
+            }
+        }
+        let line = lines.at(record.position().map_or(0, |p| p.byte()));
+        records += 1;
+        if records.is_multiple_of(65_536) {
+            progress(record.position().map_or(0, |p| p.byte()));
+        }
+        let is_first = std::mem::take(&mut first);
+        let fields: Vec<&str> = match record
+            .iter()
+            .map(std::str::from_utf8)
+            .collect::<Result<_, _>>()
+        {
+            Ok(f) => f,
+            Err(_) => {
+                problems.push(RowProblem::line(line, "not UTF-8 text"));
+                continue;
+            }
+        };
+        // A line holding only spaces reads as one empty field.
+        if fields.iter().all(|f| f.is_empty()) {
+            continue;
+        }
+        if fields.len() != 2 {
+            problems.push(RowProblem::line(
+                line,
+                format!(
+                    "expected 2 fields (period start, value), found {}",
+                    fields.len()
+                ),
+            ));
+            continue;
+        }
+        let (p, v) = (period(fields[0]), value(fields[1]));
+        if is_first && p.is_err() && v.is_err() {
+            continue; // the header row
+        }
+        match (p, v) {
+            (Ok(at), Ok(v)) => match periods.check(at, line, "line") {
+                Ok(()) => out.push(Observation {
+                    period_start: at,
+                    value: v,
+                }),
+                Err(reason) => problems.push(RowProblem::line(line, reason)),
+            },
+            (p, v) => {
+                let reasons: Vec<String> = [p.err(), v.err()].into_iter().flatten().collect();
+                problems.push(RowProblem::line(line, reasons.join("; ")));
+            }
+        }
+    }
+    progress(bytes.len() as u64);
+    finish(out, problems)
+}
+
+/// Reads a JSON upload: `{"observations": [{"period_start": "2026-03-01", "value": 71.5}, ...]}`.
+pub fn from_json(body: &serde_json::Value) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    let Some(items) = body.get("observations").and_then(|v| v.as_array()) else {
+        return Err(vec![RowProblem {
+            line: None,
+            item: None,
+            reason: "expected an object with an \"observations\" array".into(),
+        }]);
+    };
+    let mut out = Vec::with_capacity(items.len());
+    let mut problems = Vec::new();
+    let mut periods = Periods::default();
+    for (i, item) in items.iter().enumerate() {
+        let n = i as u64 + 1;
+        let Some(object) = item.as_object() else {
+            problems.push(RowProblem::item(
+                n,
+                "expected an object with period_start and value",
+            ));
+            continue;
+        };
+        if let Some(other) = object
+            .keys()
+            .find(|k| *k != "period_start" && *k != "value")
+        {
+            problems.push(RowProblem::item(n, format!("unknown field {other:?}")));
+            continue;
+        }
+        let p = match object.get("period_start") {
+            Some(serde_json::Value::String(s)) => period(s.trim()),
+            None | Some(serde_json::Value::Null) => Err("missing period start".into()),
+            Some(_) => Err("period_start must be a string".into()),
+        };
+        let v = match object.get("value") {
+            Some(serde_json::Value::Number(x)) => x
+                .as_f64()
+                .filter(|v| v.is_finite())
+                .ok_or_else(|| "non-finite value".to_string()),
+            None | Some(serde_json::Value::Null) => Err("missing value".into()),
+            Some(_) => Err("value must be a number".into()),
+        };
+        match (p, v) {
+            (Ok(at), Ok(v)) => match periods.check(at, n, "item") {
+                Ok(()) => out.push(Observation {
+                    period_start: at,
+                    value: v,
+                }),
+                Err(reason) => problems.push(RowProblem::item(n, reason)),
+            },
+            (p, v) => {
+                let reasons: Vec<String> = [p.err(), v.err()].into_iter().flatten().collect();
+                problems.push(RowProblem::item(n, reasons.join("; ")));
+            }
+        }
+    }
+    finish(out, problems)
+}
+
+fn finish(
+    mut out: Vec<Observation>,
+    problems: Vec<RowProblem>,
+) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    if !problems.is_empty() {
+        return Err(problems);
+    }
+    if out.is_empty() {
+        return Err(vec![RowProblem {
+            line: None,
+            item: None,
+            reason: "the upload holds no observations".into(),
+        }]);
+    }
+    out.sort_by_key(|o| o.period_start);
+    Ok(out)
+}

@@ -1,0 +1,553 @@
+//! A metric's history as evidence: uploads, the statistics of a window, backtests of versions
+//! and proposals, and the warnings a reviewer needs.
+
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+
+use super::{OpError, OpResult};
+use crate::domain::observations::{self, Observation, RowProblem};
+use crate::domain::thresholds::{CutSet, Shades};
+use crate::domain::{Role, Timestamp};
+use crate::engine::backtest::{self, Backtest, Difference};
+use crate::engine::stats::{self, LIMITS_MIN_POINTS, ProcessLimits, Summary};
+use crate::engine::warnings::{self, Warning};
+use crate::engine::{Side, Zone};
+use crate::store::metrics::Metric;
+use crate::store::observations::{Mode, Written};
+use crate::store::users::User;
+use crate::store::versions::VersionRecord;
+use crate::store::{Actor, Store, StoreError, metrics, observations as rows, proposals, versions};
+
+/// How an upload is written.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Format {
+    Csv,
+    Json,
+}
+
+/// Who is uploading: a person through the API or pages, or the command line.
+pub enum Uploader<'a> {
+    User(&'a User),
+    Cli,
+}
+
+/// What an upload did, as the API answers it.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct UploadReport {
+    pub metric: String,
+    #[schema(value_type = String)]
+    pub mode: Mode,
+    /// Observations in the upload.
+    pub rows: u64,
+    pub added: u64,
+    pub replaced: u64,
+    pub removed: u64,
+    /// Periods stored afterwards.
+    pub total: u64,
+    /// Hex SHA-256 of the uploaded bytes, as recorded in the event.
+    pub sha256: String,
+    /// The event that records the upload.
+    pub event_seq: i64,
+}
+
+/// Owners of the metric and admins may change its history.
+fn may_upload(by: &Uploader<'_>, metric: &Metric) -> OpResult<()> {
+    match by {
+        Uploader::Cli => Ok(()),
+        Uploader::User(u) if u.roles.has(Role::Admin) || metric.is_owner(&u.username) => Ok(()),
+        Uploader::User(_) => Err(OpError::Forbidden(
+            "only the metric's owners or an admin may upload its history".into(),
+        )),
+    }
+}
+
+/// Reads an upload; every bad line is named.
+pub fn parse(
+    format: Format,
+    bytes: &[u8],
+    progress: impl FnMut(u64),
+) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    match format {
+        Format::Csv => observations::from_csv(bytes, progress),
+        Format::Json => match serde_json::from_slice::<serde_json::Value>(bytes) {
+            Ok(v) => observations::from_json(&v),
+            Err(e) => Err(vec![RowProblem {
+                line: Some(e.line() as u64),
+                item: None,
+                reason: format!("not JSON: {e}"),
+            }]),
+        },
+    }
+}
+
+/// Checks and stores an upload: all of it or, with any bad line, none of it. Who may is
+/// checked before what they sent; the parsing runs off the async threads.
+pub async fn upload(
+    store: &Store,
+    by: Uploader<'_>,
+    key: &str,
+    mode: Mode,
+    format: Format,
+    bytes: bytes::Bytes,
+) -> OpResult<UploadReport> {
+    let metric = metrics::get(store, key).await?;
+    may_upload(&by, &metric)?;
+    let sha256 = hex::encode(Sha256::digest(&bytes));
+    let parsed = tokio::task::spawn_blocking(move || parse(format, &bytes, |_| {}))
+        .await
+        .map_err(|e| StoreError::Config(format!("parsing stopped: {e}")))?
+        .map_err(OpError::InvalidRows)?;
+    store_rows(store, by, key, mode, &parsed, &sha256, |_| {}).await
+}
+
+/// Stores observations already read whole and checked, with the upload event;
+/// `progress` hears how many rows are written.
+pub async fn store_rows(
+    store: &Store,
+    by: Uploader<'_>,
+    key: &str,
+    mode: Mode,
+    parsed: &[Observation],
+    sha256: &str,
+    progress: impl FnMut(u64),
+) -> OpResult<UploadReport> {
+    let mut w = store.begin_write().await?;
+    let metric = metrics::get_for_update(&mut w, key).await?;
+    may_upload(&by, &metric)?;
+    let written: Written = rows::write(&mut w, metric.id, mode, parsed, progress).await?;
+    let actor = match by {
+        Uploader::User(u) => Actor::User(u.username.clone()),
+        Uploader::Cli => Actor::Cli,
+    };
+    let event_seq = w
+        .record(
+            &actor,
+            "observations.uploaded",
+            &metric.subject(),
+            serde_json::json!({
+                "mode": mode.as_str(),
+                "rows": parsed.len(),
+                "sha256": sha256,
+                "added": written.added,
+                "replaced": written.replaced,
+                "removed": written.removed,
+                "total": written.total,
+            }),
+        )
+        .await?;
+    w.commit().await?;
+    Ok(UploadReport {
+        metric: metric.key.to_string(),
+        mode,
+        rows: parsed.len() as u64,
+        added: written.added,
+        replaced: written.replaced,
+        removed: written.removed,
+        total: written.total,
+        sha256: sha256.to_string(),
+        event_seq,
+    })
+}
+
+/// The window of history a request looks at: `from` inclusive, `to` exclusive.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Window {
+    pub from: Option<Timestamp>,
+    pub to: Option<Timestamp>,
+}
+
+/// Which cut set a backtest is of.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct Subject {
+    /// `version` or `proposal`.
+    pub kind: &'static str,
+    /// The version number, or the proposal's revision number.
+    pub number: i64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub proposal: Option<i64>,
+    #[schema(value_type = String)]
+    pub direction: &'static str,
+    #[schema(value_type = Object)]
+    pub cuts: serde_json::Value,
+    pub shades: u8,
+}
+
+/// A backtest as the API answers it.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct BacktestView {
+    #[serde(rename = "of")]
+    pub subject: Subject,
+    #[serde(flatten)]
+    #[schema(value_type = Object)]
+    pub result: Backtest,
+    /// What a reviewer should know about this cut set over the window.
+    #[schema(value_type = Vec<Object>)]
+    pub warnings: Vec<Warning>,
+}
+
+/// A period where two cut sets disagree.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct DifferenceView {
+    #[schema(value_type = String)]
+    pub period_start: Timestamp,
+    pub value: f64,
+    /// Zone (and band side) under the first cut set, e.g. `intervene` or `critical (low)`.
+    pub first: String,
+    pub second: String,
+}
+
+/// The statistics and the backtest of the version in force over a window.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct Evidence {
+    pub metric: String,
+    #[schema(value_type = Option<String>)]
+    pub from: Option<Timestamp>,
+    #[schema(value_type = Option<String>)]
+    pub to: Option<Timestamp>,
+    pub count: usize,
+    #[schema(value_type = Option<String>)]
+    pub first_period: Option<Timestamp>,
+    #[schema(value_type = Option<String>)]
+    pub last_period: Option<Timestamp>,
+    pub mean: Option<f64>,
+    pub sd: Option<f64>,
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+    #[schema(value_type = Option<Object>)]
+    pub percentiles: Option<stats::Percentiles>,
+    /// Natural process limits over the window (null with fewer than two periods).
+    #[schema(value_type = Option<Object>)]
+    pub limits: Option<ProcessLimits>,
+    /// False with fewer than 20 periods (common practice in SPC texts).
+    pub limits_dependable: bool,
+    /// The backtest of the version in force (null when none is).
+    pub backtest: Option<BacktestView>,
+}
+
+/// The history of a window and what is known about it.
+pub struct History {
+    pub metric: Metric,
+    pub points: Vec<Observation>,
+    pub summary: Option<Summary>,
+    pub limits: Option<ProcessLimits>,
+}
+
+impl History {
+    pub fn values(&self) -> Vec<f64> {
+        self.points.iter().map(|o| o.value).collect()
+    }
+
+    pub fn points(&self) -> Vec<(Timestamp, f64)> {
+        self.points
+            .iter()
+            .map(|o| (o.period_start, o.value))
+            .collect()
+    }
+}
+
+/// Reads a window of a metric's history and works out its statistics.
+pub async fn history(store: &Store, metric: Metric, window: Window) -> OpResult<History> {
+    if let (Some(f), Some(t)) = (window.from, window.to)
+        && f >= t
+    {
+        return Err(OpError::Invalid(crate::domain::metric::Problems::single(
+            "from",
+            "from must be before to",
+        )));
+    }
+    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let points = rows::list(&mut conn, metric.id, window.from, window.to).await?;
+    drop(conn);
+    let values: Vec<f64> = points.iter().map(|o| o.value).collect();
+    let (summary, limits) = tokio::task::spawn_blocking(move || {
+        (stats::summary(&values), stats::process_limits(&values))
+    })
+    .await
+    .map_err(|e| StoreError::Config(format!("statistics stopped: {e}")))?;
+    Ok(History {
+        metric,
+        points,
+        summary,
+        limits,
+    })
+}
+
+fn subject_of_version(v: &VersionRecord) -> Subject {
+    Subject {
+        kind: "version",
+        number: v.number,
+        proposal: None,
+        direction: v.content.direction().as_str(),
+        cuts: cuts_json(&v.content.cuts),
+        shades: v.content.shades.get(),
+    }
+}
+
+fn cuts_json(cuts: &CutSet) -> serde_json::Value {
+    cuts.named()
+        .iter()
+        .map(|(k, v)| ((*k).to_string(), serde_json::json!(v)))
+        .collect::<serde_json::Map<_, _>>()
+        .into()
+}
+
+/// The backtest of one cut set over a history, with its warnings.
+pub fn backtest_view(
+    subject: Subject,
+    cuts: &CutSet,
+    shades: Shades,
+    history: &History,
+    critical_share: f64,
+) -> BacktestView {
+    let result = backtest::backtest(cuts, shades, &history.values());
+    let warnings = warnings::warnings(cuts, &result, history.limits.as_ref(), critical_share);
+    BacktestView {
+        subject,
+        result,
+        warnings,
+    }
+}
+
+fn status_text((zone, side): (Zone, Option<Side>)) -> String {
+    match side {
+        Some(Side::Low) => format!("{} (low)", zone.as_str()),
+        Some(Side::High) => format!("{} (high)", zone.as_str()),
+        None => zone.as_str().to_string(),
+    }
+}
+
+/// The periods where two cut sets disagree over a history.
+pub fn differences(
+    first: (&CutSet, Shades),
+    second: (&CutSet, Shades),
+    history: &History,
+) -> Vec<DifferenceView> {
+    let values = history.values();
+    let a = backtest::grades(first.0, first.1, &values);
+    let b = backtest::grades(second.0, second.1, &values);
+    backtest::differences(&a, &b)
+        .into_iter()
+        .map(
+            |Difference {
+                 index,
+                 first,
+                 second,
+             }| DifferenceView {
+                period_start: history.points[index].period_start,
+                value: history.points[index].value,
+                first: status_text(first),
+                second: status_text(second),
+            },
+        )
+        .collect()
+}
+
+/// Checks a chosen critical share.
+pub fn critical_share(requested: Option<f64>) -> OpResult<f64> {
+    match requested {
+        None => Ok(warnings::DEFAULT_CRITICAL_SHARE),
+        Some(s) if (0.0..=1.0).contains(&s) => Ok(s),
+        Some(_) => Err(OpError::Invalid(crate::domain::metric::Problems::single(
+            "critical_share",
+            "critical_share must be a number from 0 to 1",
+        ))),
+    }
+}
+
+/// The evidence of a metric over a window: statistics, limits, and the version in force's
+/// backtest.
+pub async fn evidence(
+    store: &Store,
+    key: &str,
+    window: Window,
+    critical_share: f64,
+) -> OpResult<(Evidence, History, Option<VersionRecord>)> {
+    let metric = metrics::get(store, key).await?;
+    let now = store.now();
+    let in_force = {
+        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        versions::in_force(&mut conn, metric.id, now, now).await?
+    };
+    let history = history(store, metric, window).await?;
+    let backtest = in_force.as_ref().map(|v| {
+        backtest_view(
+            subject_of_version(v),
+            &v.content.cuts,
+            v.content.shades,
+            &history,
+            critical_share,
+        )
+    });
+    let s = history.summary;
+    let evidence = Evidence {
+        metric: history.metric.key.to_string(),
+        from: window.from,
+        to: window.to,
+        count: history.points.len(),
+        first_period: history.points.first().map(|o| o.period_start),
+        last_period: history.points.last().map(|o| o.period_start),
+        mean: s.map(|s| s.mean),
+        sd: s.and_then(|s| s.sd),
+        min: s.map(|s| s.min),
+        max: s.map(|s| s.max),
+        percentiles: s.map(|s| s.percentiles),
+        limits: history.limits,
+        limits_dependable: history.points.len() >= LIMITS_MIN_POINTS,
+        backtest,
+    };
+    Ok((evidence, history, in_force))
+}
+
+/// A proposal's backtest beside the version it would replace.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct ProposalBacktest {
+    pub proposal: i64,
+    pub metric: String,
+    pub count: usize,
+    #[schema(value_type = Option<Object>)]
+    pub limits: Option<ProcessLimits>,
+    /// The proposal's latest revision.
+    pub backtest: BacktestView,
+    /// The version it is compared with (the latest approved before it), if any.
+    pub compared_with: Option<BacktestView>,
+    /// Periods whose zone differs: `first` under the compared version, `second` under the
+    /// proposal.
+    pub differences: Vec<DifferenceView>,
+}
+
+/// The backtest of a proposal's latest revision and of the version it is compared with.
+pub async fn proposal_backtest(
+    store: &Store,
+    id: i64,
+    window: Window,
+    critical_share: f64,
+) -> OpResult<(ProposalBacktest, History)> {
+    let (view, previous) = super::proposals::get(store, id).await?;
+    let bundle = {
+        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        proposals::bundle(&mut conn, id)
+            .await?
+            .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?
+    };
+    let latest = bundle.latest();
+    let metric = metrics::get(store, &view.metric).await?;
+    let history = history(store, metric, window).await?;
+    let content = &latest.content;
+    let backtest = backtest_view(
+        Subject {
+            kind: "proposal",
+            number: latest.number,
+            proposal: Some(id),
+            direction: content.direction().as_str(),
+            cuts: cuts_json(&content.cuts),
+            shades: content.shades.get(),
+        },
+        &content.cuts,
+        content.shades,
+        &history,
+        critical_share,
+    );
+    let compared_with = previous.as_ref().map(|v| {
+        backtest_view(
+            subject_of_version(v),
+            &v.content.cuts,
+            v.content.shades,
+            &history,
+            critical_share,
+        )
+    });
+    let differences = previous
+        .as_ref()
+        .map(|v| {
+            differences(
+                (&v.content.cuts, v.content.shades),
+                (&content.cuts, content.shades),
+                &history,
+            )
+        })
+        .unwrap_or_default();
+    Ok((
+        ProposalBacktest {
+            proposal: id,
+            metric: history.metric.key.to_string(),
+            count: history.points.len(),
+            limits: history.limits,
+            backtest,
+            compared_with,
+            differences,
+        },
+        history,
+    ))
+}
+
+/// A version's backtest, optionally beside another version.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct VersionBacktest {
+    pub metric: String,
+    pub count: usize,
+    #[schema(value_type = Option<Object>)]
+    pub limits: Option<ProcessLimits>,
+    pub backtest: BacktestView,
+    pub compared_with: Option<BacktestView>,
+    /// Periods whose zone differs: `first` under `compared_with`, `second` under this version.
+    pub differences: Vec<DifferenceView>,
+}
+
+/// The backtest of version `number` of a metric (any version: in force, past or scheduled),
+/// optionally compared with version `compare`.
+pub async fn version_backtest(
+    store: &Store,
+    key: &str,
+    number: i64,
+    compare: Option<i64>,
+    window: Window,
+    critical_share: f64,
+) -> OpResult<VersionBacktest> {
+    let metric = metrics::get(store, key).await?;
+    let all = {
+        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        versions::list(&mut conn, metric.id).await?
+    };
+    let find = |n: i64| {
+        all.iter()
+            .find(|v| v.number == n)
+            .cloned()
+            .ok_or_else(|| StoreError::NotFound(format!("{key} has no version {n}")))
+    };
+    let version = find(number)?;
+    let other = compare.map(find).transpose()?;
+    let history = history(store, metric, window).await?;
+    let view = |v: &VersionRecord| {
+        backtest_view(
+            subject_of_version(v),
+            &v.content.cuts,
+            v.content.shades,
+            &history,
+            critical_share,
+        )
+    };
+    Ok(VersionBacktest {
+        metric: history.metric.key.to_string(),
+        count: history.points.len(),
+        limits: history.limits,
+        backtest: view(&version),
+        compared_with: other.as_ref().map(view),
+        differences: other
+            .as_ref()
+            .map(|o| {
+                differences(
+                    (&o.content.cuts, o.content.shades),
+                    (&version.content.cuts, version.content.shades),
+                    &history,
+                )
+            })
+            .unwrap_or_default(),
+    })
+}
+
+/// A window of stored observations, for the API's listing.
+pub async fn list(store: &Store, key: &str, window: Window) -> OpResult<Vec<Observation>> {
+    let metric = metrics::get(store, key).await?;
+    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    Ok(rows::list(&mut conn, metric.id, window.from, window.to).await?)
+}
