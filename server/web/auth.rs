@@ -168,6 +168,9 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
                     .into_response());
                 }
             }
+            // The history upload form sends a file, so its body is multipart; its handler
+            // reads the token first and checks it before anything else (pages::evidence).
+            Some(Credential::Session(_)) if is_upload_form(&req) => {}
             Some(Credential::Session(session)) => {
                 let expected = session.csrf_token.clone();
                 req = check_form_token(req, &expected).await?;
@@ -192,6 +195,21 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
     }
     req.extensions_mut().insert(Resolved(credential));
     Ok(req)
+}
+
+/// `POST /metrics/{key}/observations` sent as multipart/form-data.
+fn is_upload_form(req: &Request) -> bool {
+    let path = req.uri().path();
+    let multipart = req
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .is_some_and(|t| t.to_ascii_lowercase().starts_with("multipart/form-data"));
+    multipart
+        && req.method() == Method::POST
+        && path.starts_with("/metrics/")
+        && path.ends_with("/observations")
+        && path.matches('/').count() == 3
 }
 
 /// Reads a form body, checks its `_csrf` field against `expected`, and puts the body back.

@@ -202,7 +202,7 @@ fn api_routes(config: &WebConfig) -> Router<AppState> {
         .layer(DefaultBodyLimit::max(config.body_limit))
 }
 
-fn page_routes() -> Router<AppState> {
+fn page_routes(config: &WebConfig) -> Router<AppState> {
     use pages::{admin, metrics, proposals, signin};
     Router::new()
         .route("/", get(home))
@@ -211,6 +211,10 @@ fn page_routes() -> Router<AppState> {
         .route("/metrics", get(metrics::list))
         .route("/metrics/new", get(metrics::new_form).post(metrics::create))
         .route("/metrics/{key}", get(metrics::detail))
+        .route(
+            "/metrics/{key}/observations",
+            post(pages::evidence::upload).layer(DefaultBodyLimit::max(config.upload_limit)),
+        )
         .route(
             "/metrics/{key}/edit",
             get(metrics::edit_form).post(metrics::edit),
@@ -235,7 +239,10 @@ fn page_routes() -> Router<AppState> {
         .route("/proposals/{id}/submit", post(proposals::submit))
         .route("/proposals/{id}/comments", post(proposals::comment))
         .route("/proposals/{id}/reviews", post(proposals::review))
-        .route("/proposals/{id}/signoff", post(proposals::signoff))
+        .route(
+            "/proposals/{id}/signoff",
+            get(proposals::signoff_page).post(proposals::signoff),
+        )
         .route("/proposals/{id}/withdraw", post(proposals::withdraw))
         .route("/proposals/{id}/reject", post(proposals::reject))
         .route("/admin/users", get(admin::users_list))
@@ -266,7 +273,7 @@ pub fn app(state: AppState) -> Router {
     Router::new()
         .route("/healthz", get(healthz))
         .route("/static/style.css", get(style_css))
-        .merge(page_routes())
+        .merge(page_routes(&state.config))
         .nest("/api", api_routes(&state.config))
         .fallback(page_not_found)
         .layer(middleware::from_fn_with_state(state.clone(), auth::resolve))

@@ -33,6 +33,9 @@ const TEMPLATES: &[(&str, &str)] = embed![
     "audit_events.html",
     "published.html",
     "published_changes.html",
+    "evidence.html",
+    "observations_refused.html",
+    "signoff.html",
 ];
 
 /// The style sheet, served at `/static/style.css`.

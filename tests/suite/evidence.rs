@@ -674,3 +674,114 @@ on_both_backends! {
         assert_eq!(listed["observations"].as_array().unwrap().len(), 25);
     }
 }
+
+/// A multipart/form-data body (RFC 7578) with text fields and one file, as a browser sends
+/// the upload form.
+fn multipart(fields: &[(&str, &str)], file: Option<&str>) -> (String, Vec<u8>) {
+    let boundary = "----cutpoints-test-boundary-7d1f";
+    let mut body = Vec::new();
+    for (name, value) in fields {
+        body.extend_from_slice(
+            format!(
+                "--{boundary}\r\nContent-Disposition: form-data; name=\"{name}\"\r\n\r\n{value}\r\n"
+            )
+            .as_bytes(),
+        );
+    }
+    if let Some(text) = file {
+        body.extend_from_slice(
+            format!("--{boundary}\r\nContent-Disposition: form-data; name=\"file\"; filename=\"history.csv\"\r\nContent-Type: text/csv\r\n\r\n{text}\r\n").as_bytes(),
+        );
+    }
+    body.extend_from_slice(format!("--{boundary}--\r\n").as_bytes());
+    (format!("multipart/form-data; boundary={boundary}"), body)
+}
+
+async fn post_upload(
+    browser: &crate::helpers::Browser,
+    fields: &[(&str, &str)],
+    file: Option<&str>,
+) -> (u16, String, String) {
+    let (content_type, body) = multipart(fields, file);
+    let r = browser
+        .client
+        .post(browser.url(&format!("/metrics/{METRIC}/observations")))
+        .header("content-type", content_type)
+        .body(body)
+        .send()
+        .await
+        .unwrap();
+    let status = r.status().as_u16();
+    let location = r
+        .headers()
+        .get("location")
+        .map(|v| v.to_str().unwrap().to_string())
+        .unwrap_or_default();
+    (status, location, r.text().await.unwrap())
+}
+
+on_both_backends! {
+    async fn the_pages_upload_history_and_show_chart_backtest_and_warnings(app) {
+        let team = Team::new(app).await;
+        let owner = team.app.signed_in("tomas").await;
+        let (status, html) = owner.get_text(&format!("/metrics/{METRIC}")).await;
+        assert_eq!(status, 200);
+        assert!(html.contains("No history uploaded yet"), "the chart says so");
+        assert!(html.contains("enctype=\"multipart/form-data\""), "the upload form");
+        let csrf = crate::helpers::csrf_in(&html).unwrap();
+
+        // A bad file: refused with every line listed, nothing stored.
+        let (status, _, page) = post_upload(&owner, &[("_csrf", &csrf), ("mode", "merge")], Some("2026-01-05,1\n2026-01-05,2\nx,3\n")).await;
+        assert_eq!(status, 400, "{page}");
+        assert!(page.contains("line 2: duplicate period"), "{page}");
+        assert!(page.contains("line 3: unparseable date"), "{page}");
+        assert!(page.contains("Nothing in the metric"), "{page}");
+        // Without the session's token nothing is read or stored.
+        let before = team.app.event_count().await;
+        let (status, _, _) = post_upload(&owner, &[("_csrf", "forged"), ("mode", "merge")], Some(&weekly(30))).await;
+        assert_eq!(status, 403);
+        let (status, _, _) = post_upload(&owner, &[("mode", "merge")], Some(&weekly(30))).await;
+        assert_eq!(status, 403, "the token must come first");
+        assert_eq!(team.app.event_count().await, before);
+        let reviewer = team.app.signed_in("hana").await;
+        let reviewer_csrf = reviewer.csrf_on(&format!("/metrics/{METRIC}")).await;
+        let (status, _, _) = post_upload(&reviewer, &[("_csrf", &reviewer_csrf)], Some(&weekly(30))).await;
+        assert_eq!(status, 403, "only owners and admins");
+        let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
+        assert_eq!(listed["observations"].as_array().unwrap().len(), 0);
+
+        // A good file.
+        let (status, location, _) = post_upload(&owner, &[("_csrf", &csrf), ("mode", "replace")], Some(&weekly(30))).await;
+        assert_eq!(status, 303);
+        assert_eq!(location, format!("/metrics/{METRIC}?uploaded=30"));
+        let (_, html) = owner.get_text(&location).await;
+        assert!(html.contains("30 periods stored or updated"), "notice");
+        assert!(html.contains("30 periods from 2025-01-06 to 2025-07-28"), "summary");
+        assert!(html.contains("Natural process limits"), "limits in words");
+
+        // The proposal page: chart with both sets, backtest table, warnings.
+        team.agree(hib(40.0, 48.0, 60.0, 70.0, "First agreed lines.")).await;
+        let (_, p) = team.propose("tomas", hib(30.0, 50.0, 60.0, 70.0, "Intervene at 50; critical lower.")).await;
+        let id = p["id"].as_i64().unwrap();
+        team.act("tomas", id, "submit", None).await;
+        let (status, html) = reviewer.get_text(&format!("/proposals/{id}")).await;
+        assert_eq!(status, 200);
+        assert!(html.contains("history and zones"), "the chart's title");
+        assert!(html.contains("What each set would have said"));
+        assert!(html.contains(&format!("revision 1 of proposal {id}")));
+        assert!(html.contains("would fire on routine variation about"), "the intervene warning");
+        assert!(html.contains("was never reached"), "the stretch warning");
+        assert!(html.contains("Periods whose zone would change (6)"), "49.6 and 49.9 three times, {html}");
+
+        // The signatory's sign-off page shows the same evidence beside the form.
+        let signatory = team.app.signed_in("odile").await;
+        let (status, html) = signatory.get_text(&format!("/proposals/{id}/signoff")).await;
+        assert_eq!(status, 200);
+        assert!(html.contains("Evidence from the history"));
+        assert!(html.contains("history and zones"));
+        assert!(html.contains("name=\"password\""), "the sign-off form");
+        let (status, html) = reviewer.get_text(&format!("/proposals/{id}/signoff")).await;
+        assert_eq!(status, 200);
+        assert!(!html.contains("name=\"password\""), "a reviewer cannot sign");
+    }
+}

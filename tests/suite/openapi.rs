@@ -163,6 +163,16 @@ on_both_backends! {
             ("/api/v1/audit/exceptions", "get", "/api/v1/audit/exceptions".into(), None),
             ("/api/v1/audit/as-of", "get", "/api/v1/audit/as-of".into(), None),
             ("/api/v1/audit/metrics/{key}", "get", format!("/api/v1/audit/metrics/{METRIC}"), None),
+            ("/api/v1/metrics/{key}/observations", "post", format!("/api/v1/metrics/{METRIC}/observations"), Some(json!({"observations": [
+                {"period_start": "2026-01-05", "value": 72.5}, {"period_start": "2026-01-12", "value": 68}, {"period_start": "2026-01-19", "value": 81},
+            ]}))),
+            ("/api/v1/metrics/{key}/observations", "post", format!("/api/v1/metrics/{METRIC}/observations"), Some(json!({"observations": [{"period_start": "soon", "value": 1}]}))),
+            ("/api/v1/metrics/{key}/observations", "get", format!("/api/v1/metrics/{METRIC}/observations"), None),
+            ("/api/v1/metrics/{key}/evidence", "get", format!("/api/v1/metrics/{METRIC}/evidence"), None),
+            ("/api/v1/metrics/{key}/evidence", "get", "/api/v1/metrics/fleet.rides/evidence".into(), None),
+            ("/api/v1/proposals/{id}/backtest", "get", format!("/api/v1/proposals/{open}/backtest"), None),
+            ("/api/v1/metrics/{key}/versions/{number}/backtest", "get", format!("/api/v1/metrics/{METRIC}/versions/1/backtest"), None),
+            ("/api/v1/metrics/{key}/versions/{number}/backtest", "get", format!("/api/v1/metrics/{METRIC}/versions/7/backtest"), None),
         ];
         let mut cases = Vec::new();
         let mut statuses = Vec::new();

@@ -83,6 +83,8 @@ fn parse_key(key: &str) -> Result<MetricKey, PageError> {
 #[serde(default)]
 pub struct SavedQuery {
     saved: String,
+    /// Rows of a history upload just stored.
+    uploaded: String,
 }
 
 pub async fn detail(
@@ -98,6 +100,12 @@ pub async fn detail(
         "edited" => Some("Your changes were saved."),
         _ => None,
     };
+    let uploaded = query.uploaded.parse::<u64>().ok().map(|n| {
+        format!(
+            "The history was uploaded: {n} period{} stored or updated.",
+            if n == 1 { "" } else { "s" }
+        )
+    });
     let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
     let history = &thresholds.history;
     let (in_force, scheduled) = crate::ops::versions::current(history);
@@ -172,6 +180,25 @@ pub async fn detail(
             .collect::<Vec<_>>(),
     );
     ctx.insert("strip", &strip);
+    let evidence_history =
+        crate::ops::evidence::history(&state.store, metric.clone(), Default::default()).await?;
+    let shown = in_force.map(|v| super::evidence::Shown::version(&v.record));
+    ctx.insert(
+        "evidence",
+        &super::evidence::section(
+            "evidence",
+            &metric.name,
+            unit,
+            &evidence_history,
+            shown.as_ref(),
+            None,
+        ),
+    );
+    ctx.insert(
+        "can_upload",
+        &(session.user.roles.has(Role::Admin) || metric.is_owner(&session.user.username)),
+    );
+    ctx.insert("uploaded", &uploaded);
     ctx.insert(
         "diffs",
         &history

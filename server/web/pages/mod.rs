@@ -3,6 +3,7 @@
 
 pub mod admin;
 pub mod audit;
+pub mod evidence;
 pub mod metrics;
 pub mod proposals;
 pub mod published;

@@ -500,11 +500,53 @@ fn permissions(session: &Session, metric: &Metric, view: &ProposalView) -> Value
     })
 }
 
+/// The evidence section for a proposal: its latest revision beside the version it would
+/// replace, over the whole history.
+async fn proposal_evidence(
+    state: &AppState,
+    metric: &Metric,
+    view: &ProposalView,
+    previous: Option<&VersionRecord>,
+) -> Result<serde_json::Value, PageError> {
+    let latest = &view.latest_revision;
+    let proposed = latest
+        .direction
+        .parse()
+        .ok()
+        .and_then(|d| CutSet::from_named(d, latest.cuts.iter().map(|(k, v)| (*k, *v))).ok());
+    let shades = crate::domain::thresholds::Shades::new(i64::from(latest.shades)).ok();
+    let history =
+        crate::ops::evidence::history(&state.store, metric.clone(), Default::default()).await?;
+    let in_force = previous.map(|v| super::evidence::Shown {
+        caption: format!("Version {}", v.number),
+        cuts: &v.content.cuts,
+        shades: v.content.shades,
+    });
+    let proposal = match (&proposed, shades) {
+        (Some(cuts), Some(shades)) => Some(super::evidence::Shown {
+            caption: format!("revision {} of proposal {}", latest.number, view.id),
+            cuts,
+            shades,
+        }),
+        _ => None,
+    };
+    Ok(super::evidence::section(
+        "evidence",
+        &metric.name,
+        &latest.unit,
+        &history,
+        in_force.as_ref(),
+        proposal.as_ref(),
+    ))
+}
+
+#[allow(clippy::too_many_arguments)]
 fn proposal_page(
     session: &Session,
     metric: &Metric,
     view: &ProposalView,
     previous: Option<&VersionRecord>,
+    evidence: &serde_json::Value,
     notice: Option<&str>,
     error: Option<&str>,
     status: StatusCode,
@@ -533,6 +575,7 @@ fn proposal_page(
     ctx.insert("p", view);
     ctx.insert("metric", metric);
     ctx.insert("strip", &strip);
+    ctx.insert("evidence", evidence);
     ctx.insert("can", &permissions(session, metric, view));
     ctx.insert("notice", &notice);
     ctx.insert("error", &error);
@@ -562,15 +605,41 @@ pub async fn show(
     let id = parse_id(&id)?;
     let (view, previous) = flow::get(&state.store, id).await?;
     let metric = metrics::get(&state.store, &view.metric).await?;
+    let evidence = proposal_evidence(&state, &metric, &view, previous.as_ref()).await?;
     Ok(proposal_page(
         &session,
         &metric,
         &view,
         previous.as_ref(),
+        &evidence,
         done_message(&query.done),
         None,
         StatusCode::OK,
     ))
+}
+
+/// `GET /proposals/{id}/signoff`: what changes, the evidence and the signature form on one
+/// page for the signatory.
+pub async fn signoff_page(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+) -> Result<Response, PageError> {
+    let id = parse_id(&id)?;
+    let (view, previous) = flow::get(&state.store, id).await?;
+    let metric = metrics::get(&state.store, &view.metric).await?;
+    let evidence = proposal_evidence(&state, &metric, &view, previous.as_ref()).await?;
+    let mut ctx = base_context(
+        Some(&session),
+        &format!("Sign off proposal {} for {}", view.id, metric.name),
+        "register",
+    );
+    ctx.insert("p", &view);
+    ctx.insert("metric", &metric);
+    ctx.insert("evidence", &evidence);
+    ctx.insert("can", &permissions(&session, &metric, &view));
+    ctx.insert("error", &None::<String>);
+    Ok(render(StatusCode::OK, "signoff.html", &ctx))
 }
 
 /// Runs a step; on success returns to the proposal with a message, on a refusal shows the
@@ -593,11 +662,13 @@ async fn step(
             }
             let (view, previous) = flow::get(&state.store, id).await?;
             let metric = metrics::get(&state.store, &view.metric).await?;
+            let evidence = proposal_evidence(state, &metric, &view, previous.as_ref()).await?;
             let mut response = proposal_page(
                 session,
                 &metric,
                 &view,
                 previous.as_ref(),
+                &evidence,
                 None,
                 Some(&api.message),
                 api.status,

@@ -1,0 +1,250 @@
+//! The evidence section shown on the metric, proposal and sign-off pages: the history chart,
+//! a short summary of the statistics, each cut set's backtest, and the reviewer's warnings.
+//! Also the history upload form's handler.
+
+use axum::extract::{Multipart, Path, State};
+use axum::http::StatusCode;
+use axum::response::{IntoResponse, Redirect, Response};
+use serde_json::{Value, json};
+
+use crate::domain::number;
+use crate::domain::thresholds::{CutSet, Shades};
+use crate::engine::warnings::{DEFAULT_CRITICAL_SHARE, percent, round_for_text};
+use crate::ops::evidence::{self, Format, History, Uploader};
+use crate::store::observations::Mode;
+use crate::store::versions::VersionRecord;
+use crate::web::AppState;
+use crate::web::auth::{CSRF_FIELD, PageSession};
+use crate::web::error::{ApiError, PageError};
+use crate::web::history_chart::{Bands, HistoryChart, LimitLines, history_chart};
+
+/// A cut set the section shows, with the words for it.
+pub struct Shown<'a> {
+    /// "In force: version 3", "Proposed: revision 2".
+    pub caption: String,
+    pub cuts: &'a CutSet,
+    pub shades: Shades,
+}
+
+impl<'a> Shown<'a> {
+    pub fn version(v: &'a VersionRecord) -> Shown<'a> {
+        Shown {
+            caption: format!("In force: version {}", v.number),
+            cuts: &v.content.cuts,
+            shades: v.content.shades,
+        }
+    }
+}
+
+fn num(x: f64) -> String {
+    number::format(round_for_text(x))
+}
+
+/// How many differing periods the page lists before saying how many more there are.
+const DIFFERENCES_SHOWN: usize = 12;
+
+/// The section's context. `judged` is the cut set the warnings are about (the proposal on a
+/// proposal page, the version in force on a metric page).
+pub fn section(
+    id_prefix: &str,
+    metric_name: &str,
+    unit: &str,
+    history: &History,
+    in_force: Option<&Shown<'_>>,
+    proposal: Option<&Shown<'_>>,
+) -> Value {
+    let points = history.points();
+    let chart = history_chart(&HistoryChart {
+        id_prefix,
+        title: &format!("{metric_name}: history and zones"),
+        unit,
+        points: &points,
+        in_force: in_force.map(|s| Bands {
+            caption: &s.caption,
+            cuts: s.cuts,
+        }),
+        proposal: proposal.map(|s| Bands {
+            caption: &s.caption,
+            cuts: s.cuts,
+        }),
+        limits: history.limits.map(|l| LimitLines {
+            mean: l.mean,
+            lower: l.lower,
+            upper: l.upper,
+        }),
+    });
+    let summary = history.summary.map(|s| {
+        json!({
+            "count": s.count,
+            "mean": num(s.mean),
+            "sd": s.sd.map(num),
+            "min": num(s.min),
+            "max": num(s.max),
+            "p10": num(s.percentiles.p10),
+            "p50": num(s.percentiles.p50),
+            "p90": num(s.percentiles.p90),
+        })
+    });
+    let limits = history.limits.map(|l| {
+        json!({
+            "lower": num(l.lower),
+            "upper": num(l.upper),
+            "mean": num(l.mean),
+            "average_moving_range": num(l.average_moving_range),
+            "dependable": l.baseline_count >= crate::engine::stats::LIMITS_MIN_POINTS,
+        })
+    });
+    let judged = proposal.or(in_force);
+    let backtests: Vec<Value> = [in_force, proposal]
+        .into_iter()
+        .flatten()
+        .map(|s| {
+            let view = evidence::backtest_view(
+                evidence::Subject {
+                    kind: "",
+                    number: 0,
+                    proposal: None,
+                    direction: s.cuts.direction().as_str(),
+                    cuts: Value::Null,
+                    shades: s.shades.get(),
+                },
+                s.cuts,
+                s.shades,
+                history,
+                DEFAULT_CRITICAL_SHARE,
+            );
+            let zones: Vec<Value> = crate::engine::backtest::zones_of(s.cuts.direction())
+                .iter()
+                .map(|z| {
+                    json!({
+                        "name": z.as_str(),
+                        "count": view.result.zones[z.as_str()],
+                        "share": percent(view.result.zone_shares[z.as_str()]),
+                    })
+                })
+                .collect();
+            json!({"caption": s.caption, "zones": zones, "changes": view.result.changes})
+        })
+        .collect();
+    let warnings: Vec<String> = judged
+        .map(|s| {
+            let bt = crate::engine::backtest::backtest(s.cuts, s.shades, &history.values());
+            crate::engine::warnings::warnings(
+                s.cuts,
+                &bt,
+                history.limits.as_ref(),
+                DEFAULT_CRITICAL_SHARE,
+            )
+            .into_iter()
+            .map(|w| w.message)
+            .collect()
+        })
+        .unwrap_or_default();
+    let differences = match (in_force, proposal) {
+        (Some(a), Some(b)) => {
+            let all = evidence::differences((a.cuts, a.shades), (b.cuts, b.shades), history);
+            json!({
+                "count": all.len(),
+                "shown": all.iter().take(DIFFERENCES_SHOWN).map(|d| json!({
+                    "period": d.period_start.to_string()[..10].to_string(),
+                    "value": number::format(d.value),
+                    "first": d.first,
+                    "second": d.second,
+                })).collect::<Vec<_>>(),
+                "more": all.len().saturating_sub(DIFFERENCES_SHOWN),
+            })
+        }
+        _ => Value::Null,
+    };
+    json!({
+        "chart": chart,
+        "count": history.points.len(),
+        "first": history.points.first().map(|o| o.period_start.to_string()[..10].to_string()),
+        "last": history.points.last().map(|o| o.period_start.to_string()[..10].to_string()),
+        "summary": summary,
+        "limits": limits,
+        "backtests": backtests,
+        "warnings": warnings,
+        "judged": judged.map(|s| s.caption.clone()),
+        "differences": differences,
+    })
+}
+
+/// `POST /metrics/{key}/observations`: the upload form (a CSV file and a mode). Its CSRF
+/// token travels in the multipart body, so it is checked here, before anything else is read
+/// or done, against the session's (the middleware lets only this form through unchecked).
+pub async fn upload(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(key): Path<String>,
+    mut form: Multipart,
+) -> Result<Response, PageError> {
+    let bad = |m: String| PageError(ApiError::bad_request(m));
+    let mut csrf = None;
+    let mut mode = Mode::Merge;
+    let mut file = None;
+    while let Some(field) = form
+        .next_field()
+        .await
+        .map_err(|e| bad(format!("the form could not be read: {e}")))?
+    {
+        let name = field.name().unwrap_or("").to_string();
+        if csrf.is_none() && name != CSRF_FIELD {
+            break; // the token comes first; without it nothing else is read
+        }
+        let data = field
+            .bytes()
+            .await
+            .map_err(|e| bad(format!("the form could not be read: {e}")))?;
+        match name.as_str() {
+            CSRF_FIELD => csrf = Some(String::from_utf8_lossy(&data).into_owned()),
+            "mode" => {
+                mode = match &data[..] {
+                    b"replace" => Mode::Replace,
+                    _ => Mode::Merge,
+                }
+            }
+            "file" => file = Some(data),
+            _ => {}
+        }
+    }
+    let sent = csrf.unwrap_or_default();
+    if !crate::auth::secret::constant_time_eq(&sent, &session.csrf_token) {
+        return Err(PageError(ApiError::forbidden(
+            "this form has expired or did not come from cutpoints: go back, reload the page and try again",
+        )));
+    }
+    let Some(file) = file.filter(|f| !f.is_empty()) else {
+        return Err(bad("choose a CSV file to upload".into()));
+    };
+    match evidence::upload(
+        &state.store,
+        Uploader::User(&session.user),
+        &key,
+        mode,
+        Format::Csv,
+        file,
+    )
+    .await
+    {
+        Ok(report) => Ok(Redirect::to(&format!(
+            "/metrics/{}?uploaded={}",
+            report.metric, report.rows
+        ))
+        .into_response()),
+        Err(crate::ops::OpError::InvalidRows(rows)) => {
+            let mut ctx = super::base_context(Some(&session), "Upload refused", "register");
+            ctx.insert("key", &key);
+            ctx.insert(
+                "problems",
+                &rows.iter().map(|r| r.describe()).collect::<Vec<_>>(),
+            );
+            Ok(super::render(
+                StatusCode::BAD_REQUEST,
+                "observations_refused.html",
+                &ctx,
+            ))
+        }
+        Err(e) => Err(e.into()),
+    }
+}
