@@ -149,6 +149,36 @@ on_both_backends! {
         assert!(!awaiting[0]["still_needed"]["reasons"].as_array().unwrap().is_empty());
         assert_eq!(open.len(), 3, "{open:?}");
 
+        // Every metric has a year or more of invented history, and each open proposal has
+        // a backtest with something to warn about, shown on its page.
+        let mut warned = 0;
+        for key in METRICS {
+            let e = get(&app, &token, &format!("/api/v1/metrics/{key}/evidence")).await;
+            assert!(e["count"].as_u64().unwrap() >= 24, "{key}: {e}");
+            let span = time(&e["last_period"]).as_datetime() - time(&e["first_period"]).as_datetime();
+            assert!(span.num_days() >= 365, "{key}: {e}");
+            assert!(time(&e["last_period"]) < now);
+            assert!(e["limits"].is_object() && e["backtest"].is_object(), "{key}: {e}");
+        }
+        for p in &open {
+            let id = p["id"].as_i64().unwrap();
+            let b = get(&app, &token, &format!("/api/v1/proposals/{id}/backtest")).await;
+            assert!(b["count"].as_u64().unwrap() >= 24, "{b}");
+            warned += usize::from(!b["backtest"]["warnings"].as_array().unwrap().is_empty());
+        }
+        assert!(warned >= 2, "the demo shows warnings");
+        let browser = crate::helpers::Browser::new(&app);
+        let hana = cutpoints::demo::PEOPLE.iter().find(|p| p.username == "hana").unwrap();
+        assert_eq!(browser.sign_in("hana", &hana.password()).await.status(), 303);
+        let id = open[0]["id"].as_i64().unwrap();
+        let (status, html) = browser.get_text(&format!("/proposals/{id}")).await;
+        assert_eq!(status, 200);
+        for part in ["history and zones", "What each set would have said", "Warnings about"] {
+            assert!(html.contains(part), "{part}");
+        }
+        let upload_events = app.events().await.into_iter().filter(|e| e.event.action == "observations.uploaded").count();
+        assert_eq!(upload_events, METRICS.len());
+
         // The log holds the whole story, in time order, starting about eighteen months ago.
         let events = app.events().await;
         let approved = events.iter().filter(|e| e.event.action == "version.approved").count();
