@@ -406,7 +406,7 @@ pub struct ProposalBacktest {
     pub count: usize,
     #[schema(value_type = Option<Object>)]
     pub limits: Option<ProcessLimits>,
-    /// The proposal's latest revision.
+    /// The proposal's revision (the latest unless the request named one).
     pub backtest: BacktestView,
     /// The version it is compared with (the latest approved before it), if any.
     pub compared_with: Option<BacktestView>,
@@ -415,10 +415,12 @@ pub struct ProposalBacktest {
     pub differences: Vec<DifferenceView>,
 }
 
-/// The backtest of a proposal's latest revision and of the version it is compared with.
+/// The backtest of a proposal's revision (the latest unless one is named) and of the version
+/// it is compared with.
 pub async fn proposal_backtest(
     store: &Store,
     id: i64,
+    revision: Option<i64>,
     window: Window,
     critical_share: f64,
 ) -> OpResult<(ProposalBacktest, History)> {
@@ -429,7 +431,14 @@ pub async fn proposal_backtest(
             .await?
             .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?
     };
-    let latest = bundle.latest();
+    let latest = match revision {
+        None => bundle.latest(),
+        Some(n) => bundle
+            .revisions
+            .iter()
+            .find(|r| r.number == n)
+            .ok_or_else(|| StoreError::NotFound(format!("proposal {id} has no revision {n}")))?,
+    };
     let metric = metrics::get(store, &view.metric).await?;
     let history = history(store, metric, window).await?;
     let content = &latest.content;

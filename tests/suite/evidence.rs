@@ -635,6 +635,19 @@ on_both_backends! {
         assert_eq!(status, 404);
         let (status, _) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/versions/1/backtest?compare=9"), None).await;
         assert_eq!(status, 404);
+        // An earlier revision can be tested too.
+        let mut body = hib(40.0, 52.0, 60.0, 70.0, "Raise intervene to 52.");
+        body["note"] = json!("higher");
+        let (status, revised) = team.call("tomas", "PUT", &format!("/api/v1/proposals/{id}"), Some(body)).await;
+        assert_eq!(status, 200, "{revised}");
+        let (_, latest) = team.call("wren", "GET", &format!("/api/v1/proposals/{id}/backtest"), None).await;
+        assert_eq!(latest["backtest"]["of"]["number"], 2, "{latest}");
+        let (status, first) = team.call("wren", "GET", &format!("/api/v1/proposals/{id}/backtest?revision=1"), None).await;
+        assert_eq!(status, 200, "{first}");
+        assert_eq!(first["backtest"]["of"]["number"], 1);
+        assert_eq!(first["differences"].as_array().unwrap().len(), 4);
+        let (status, _) = team.call("wren", "GET", &format!("/api/v1/proposals/{id}/backtest?revision=7"), None).await;
+        assert_eq!(status, 404);
         let (status, _) = team.call("wren", "GET", "/api/v1/proposals/999999/backtest", None).await;
         assert_eq!(status, 404);
     }

@@ -179,20 +179,38 @@ pub async fn show(
     Ok(Json(evidence))
 }
 
-/// `GET /api/v1/proposals/{id}/backtest`: the proposal's latest revision and the version it
-/// would replace, over the history.
+#[derive(Deserialize, Default, utoipa::IntoParams)]
+#[serde(default, deny_unknown_fields)]
+#[into_params(parameter_in = Query)]
+pub struct ProposalQuery {
+    /// First period start to include (RFC 3339 or a bare date).
+    from: String,
+    /// Period starts before this are included (exclusive).
+    to: String,
+    /// Share of periods (0 to 1) at critical above which a warning is given. Default 0.1.
+    critical_share: Option<f64>,
+    /// The revision to test (default: the latest).
+    revision: Option<i64>,
+}
+
+/// `GET /api/v1/proposals/{id}/backtest`: a revision of the proposal (the latest unless
+/// named) and the version it would replace, over the history.
 #[utoipa::path(get, path = "/v1/proposals/{id}/backtest", operation_id = "getProposalBacktest", tag = "evidence",
-    params(("id" = i64, Path, description = "Proposal id"), WindowQuery),
-    responses((status = 200, description = "Both backtests and the periods where they differ", body = ProposalBacktest), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such proposal", body = ErrorBody)))]
+    params(("id" = i64, Path, description = "Proposal id"), ProposalQuery),
+    responses((status = 200, description = "Both backtests and the periods where they differ", body = ProposalBacktest), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such proposal or revision", body = ErrorBody)))]
 pub async fn proposal(
     State(state): State<AppState>,
     _caller: ApiCaller,
     ProposalId(id): ProposalId,
-    ApiQuery(query): ApiQuery<WindowQuery>,
+    ApiQuery(query): ApiQuery<ProposalQuery>,
 ) -> Result<Json<ProposalBacktest>, ApiError> {
+    let window = Window {
+        from: time("from", &query.from)?,
+        to: time("to", &query.to)?,
+    };
+    let share = evidence::critical_share(query.critical_share)?;
     let (backtest, _) =
-        evidence::proposal_backtest(&state.store, id, query.window()?, query.critical_share()?)
-            .await?;
+        evidence::proposal_backtest(&state.store, id, query.revision, window, share).await?;
     Ok(Json(backtest))
 }
 
