@@ -798,3 +798,33 @@ on_both_backends! {
         assert!(!html.contains("name=\"password\""), "a reviewer cannot sign");
     }
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn uploads_past_the_json_limit_work_and_past_the_upload_limit_answer_413() {
+    let config = cutpoints::web::WebConfig {
+        upload_limit: 4 * 1024 * 1024,
+        ..Default::default()
+    };
+    let app = crate::helpers::TestApp::spawn_with(crate::helpers::Backend::Sqlite, config)
+        .await
+        .unwrap();
+    let team = Team::new(app).await;
+    // About 3 MB: more than the 2 MiB the JSON endpoints take, within the upload limit.
+    let start = chrono::NaiveDate::from_ymd_opt(1900, 1, 1).unwrap();
+    let big: String = (0..150_000)
+        .map(|i| format!("{},{}.125\n", start + chrono::Duration::days(i), i % 997))
+        .collect();
+    assert!(
+        big.len() > 2 * 1024 * 1024 && big.len() < 4 * 1024 * 1024,
+        "{}",
+        big.len()
+    );
+    let (status, body) = upload(&team, "tomas", "", "text/csv", big.clone()).await;
+    assert_eq!(status, 200, "{body}");
+    assert_eq!(body["rows"], 150_000);
+    let before = team.app.event_count().await;
+    let (status, body) = upload(&team, "tomas", "", "text/csv", big.repeat(2)).await;
+    assert_eq!(status, 413, "{body}");
+    assert_eq!(body["error"]["code"], "too_large");
+    assert_eq!(team.app.event_count().await, before);
+}
