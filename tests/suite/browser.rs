@@ -413,3 +413,71 @@ async fn in_chromium_a_proposal_is_sent_back_revised_approved_and_signed() {
         serde_json::json!(["hana (display)"])
     );
 }
+
+/// The owner uploads a CSV file through the metric page's form (a real multipart post, its
+/// CSRF token inside), then sees the history summarised and drawn.
+async fn upload_history_through_the_form(base: &str, client: &Client, file: &std::path::Path) {
+    let metric = format!("{base}/metrics/{}", crate::workflow_support::METRIC);
+    sign_in_as(client, base, "tomas").await;
+    client.goto(&metric).await.unwrap();
+    let input = client.find(Locator::Id("history-file")).await.unwrap();
+    input.send_keys(&file.display().to_string()).await.unwrap();
+    click_button(client, "Upload").await;
+    wait_notice(client, "periods stored or updated").await;
+    let text = page_text(client).await;
+    assert!(
+        text.contains("The history was uploaded: 25 periods"),
+        "{text}"
+    );
+    assert!(text.contains("25 periods from 2026-01-05"), "{text}");
+    let chart = client.find(Locator::Css("figure.chart svg")).await.unwrap();
+    assert_eq!(chart.attr("role").await.unwrap().as_deref(), Some("img"));
+    let desc = client
+        .find(Locator::Css("figure.chart svg desc"))
+        .await
+        .unwrap()
+        .html(true)
+        .await
+        .unwrap();
+    assert!(desc.contains("25"), "{desc}");
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn in_chromium_an_owner_uploads_history_and_sees_it_drawn() {
+    let Some((driver, chromium)) = start_driver().await else {
+        return;
+    };
+    let app = TestApp::spawn(Backend::Sqlite).await.unwrap();
+    let team = crate::workflow_support::Team::new(app).await;
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("history.csv");
+    let start = chrono::NaiveDate::from_ymd_opt(2026, 1, 5).unwrap();
+    let csv: String = std::iter::once("period_start,value\n".to_string())
+        .chain((0..25).map(|i| format!("{},{}\n", start + chrono::Duration::weeks(i), 60 + i % 7)))
+        .collect();
+    std::fs::write(&file, csv).unwrap();
+    let client = browser(&driver, &chromium).await;
+    let flow = tokio::spawn({
+        let client = client.clone();
+        let base = team.app.base.clone();
+        let file = file.clone();
+        async move { upload_history_through_the_form(&base, &client, &file).await }
+    });
+    let result = flow.await;
+    let _ = client.close().await;
+    if let Err(e) = result {
+        std::panic::resume_unwind(e.into_panic());
+    }
+    let (_, listed) = team
+        .call(
+            "wren",
+            "GET",
+            &format!(
+                "/api/v1/metrics/{}/observations",
+                crate::workflow_support::METRIC
+            ),
+            None,
+        )
+        .await;
+    assert_eq!(listed["observations"].as_array().unwrap().len(), 25);
+}
