@@ -502,7 +502,7 @@ fn round_to(x: f64, per_unit: f64) -> f64 {
 }
 
 /// An invented history for a demo metric as CSV (with a header row): two years of weekly
-/// periods, or two to three years of months, all starting before `end`.
+/// periods, or 16 to 36 months, all starting before `end`.
 fn history_csv(key: &str, end: Timestamp) -> String {
     use std::f64::consts::TAU;
     let today = end.as_datetime().date_naive();
@@ -560,8 +560,9 @@ fn history_csv(key: &str, end: Timestamp) -> String {
                 (d, round_to((level + 0.3 * noise.next()).max(0.3), 100.0))
             })
             .collect(),
-        // Cash runway, months: slowly lengthening.
-        _ => monthly(24)
+        // Cash runway, months: slowly lengthening; recorded monthly only since the last
+        // finance review, so the history is short.
+        _ => monthly(16)
             .enumerate()
             .map(|(t, d)| {
                 (

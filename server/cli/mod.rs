@@ -228,7 +228,7 @@ pub enum ObservationsCommand {
         #[arg(long, env = "CUTPOINTS_MODE", default_value = "merge", value_parser = ["merge", "replace"])]
         mode: String,
         /// Do not draw a progress bar (it is drawn only on a terminal anyway).
-        #[arg(long)]
+        #[arg(long, env = "CUTPOINTS_QUIET")]
         quiet: bool,
         /// The CSV file.
         file: std::path::PathBuf,

@@ -61,23 +61,49 @@ fn period(text: &str) -> Result<Timestamp, String> {
     }
     Timestamp::parse(text).map_err(|_| {
         format!(
-            "unparseable date {text:?}: expected an RFC 3339 date such as 2026-03-01 or a time \
-             such as 2026-03-01T09:30:00Z"
+            "unparseable date {}: expected an RFC 3339 date such as 2026-03-01 or a time such \
+             as 2026-03-01T09:30:00Z",
+            echo(text)
         )
     })
 }
 
-/// A value field: a finite decimal number.
+/// The largest magnitude a value may have: far beyond any metric, and small enough that sums
+/// of squares over millions of values stay finite.
+pub const VALUE_MAX: f64 = 1e150;
+
+/// At most this much of a bad field is repeated in its reason.
+const ECHO_MAX: usize = 40;
+
+/// A field as shown in a reason: quoted, and cut short when long.
+fn echo(text: &str) -> String {
+    if text.chars().count() <= ECHO_MAX {
+        format!("{text:?}")
+    } else {
+        let start: String = text.chars().take(ECHO_MAX).collect();
+        format!("{start:?}…")
+    }
+}
+
+/// A value field: a finite decimal number within ±1e150.
 fn value(text: &str) -> Result<f64, String> {
     if text.is_empty() {
         return Err("missing value".into());
     }
-    match text.parse::<f64>() {
-        Ok(v) if v.is_finite() => Ok(v),
-        Ok(_) => Err(format!(
-            "non-finite value {text:?}: values must be finite numbers"
-        )),
-        Err(_) => Err(format!("value {text:?} is not a number")),
+    checked(
+        text.parse::<f64>()
+            .map_err(|_| format!("value {} is not a number", echo(text)))?,
+    )
+    .map_err(|reason| format!("{reason} ({})", echo(text)))
+}
+
+fn checked(v: f64) -> Result<f64, String> {
+    if !v.is_finite() {
+        Err("non-finite value: values must be finite numbers".into())
+    } else if v.abs() > VALUE_MAX {
+        Err("value too large: values must lie within ±1e150".into())
+    } else {
+        Ok(v)
     }
 }
 
@@ -137,7 +163,7 @@ impl<'a> LineCounter<'a> {
 }
 
 /// Reads a CSV upload: two columns, period start and value, with an optional header row (a
-/// first line neither of whose fields reads as its column's type). Periods may come in any
+/// first line whose first field holds no digit and whose second is not a number). Periods may come in any
 /// order; a period may appear once. `progress` is told how many bytes have been read, now and
 /// then, for large files.
 pub fn from_csv(
@@ -150,7 +176,7 @@ pub fn from_csv(
         .trim(csv::Trim::All)
         .from_reader(bytes);
     let mut out = Vec::new();
-    let mut problems = Vec::new();
+    let mut problems = Found::default();
     let mut periods = Periods::default();
     let mut record = csv::ByteRecord::new();
     let mut first = true;
@@ -176,7 +202,6 @@ pub fn from_csv(
         if records.is_multiple_of(65_536) {
             progress(record.position().map_or(0, |p| p.byte()));
         }
-        let is_first = std::mem::take(&mut first);
         let fields: Vec<&str> = match record
             .iter()
             .map(std::str::from_utf8)
@@ -192,6 +217,7 @@ pub fn from_csv(
         if fields.iter().all(|f| f.is_empty()) {
             continue;
         }
+        let is_first = std::mem::take(&mut first);
         if fields.len() != 2 {
             problems.push(RowProblem::line(
                 line,
@@ -202,10 +228,11 @@ pub fn from_csv(
             ));
             continue;
         }
-        let (p, v) = (period(fields[0]), value(fields[1]));
-        if is_first && p.is_err() && v.is_err() {
-            continue; // the header row
+        // The header row: a first line naming its columns, with no digit in the first.
+        if is_first && !fields[0].bytes().any(|b| b.is_ascii_digit()) && value(fields[1]).is_err() {
+            continue;
         }
+        let (p, v) = (period(fields[0]), value(fields[1]));
         match (p, v) {
             (Ok(at), Ok(v)) => match periods.check(at, line, "line") {
                 Ok(()) => out.push(Observation {
@@ -227,30 +254,130 @@ pub fn from_csv(
 /// Reads a JSON upload: `{"observations": [{"period_start": "2026-03-01", "value": 71.5}, ...]}`.
 pub fn from_json(body: &serde_json::Value) -> Result<Vec<Observation>, Vec<RowProblem>> {
     let Some(items) = body.get("observations").and_then(|v| v.as_array()) else {
-        return Err(vec![RowProblem {
-            line: None,
-            item: None,
-            reason: "expected an object with an \"observations\" array".into(),
-        }]);
+        return Err(no_observations_array());
     };
-    let mut out = Vec::with_capacity(items.len());
-    let mut problems = Vec::new();
-    let mut periods = Periods::default();
-    for (i, item) in items.iter().enumerate() {
-        let n = i as u64 + 1;
+    let mut reader = JsonItems::default();
+    for item in items {
+        reader.item(item);
+    }
+    finish(reader.out, reader.problems)
+}
+
+/// Reads a JSON upload from its bytes, one item at a time, so that memory grows with the
+/// observations kept rather than with a parsed copy of the whole document.
+pub fn from_json_bytes(bytes: &[u8]) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    use serde::de::DeserializeSeed;
+    let mut reader = JsonItems::default();
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    let found = Top(&mut reader)
+        .deserialize(&mut de)
+        .and_then(|found| de.end().map(|()| found));
+    match found {
+        Ok(true) => finish(reader.out, reader.problems),
+        Ok(false) => Err(no_observations_array()),
+        Err(e) => Err(vec![RowProblem {
+            line: Some(e.line() as u64),
+            item: None,
+            reason: format!("not JSON of the expected shape: {e}"),
+        }]),
+    }
+}
+
+fn no_observations_array() -> Vec<RowProblem> {
+    vec![RowProblem {
+        line: None,
+        item: None,
+        reason: "expected an object with an \"observations\" array".into(),
+    }]
+}
+
+/// The top-level object: its `observations` array is read item by item; other keys are
+/// skipped.
+struct Top<'a>(&'a mut JsonItems);
+
+impl<'de> serde::de::DeserializeSeed<'de> for Top<'_> {
+    type Value = bool;
+
+    fn deserialize<D: serde::Deserializer<'de>>(self, d: D) -> Result<bool, D::Error> {
+        d.deserialize_map(self)
+    }
+}
+
+impl<'de> serde::de::Visitor<'de> for Top<'_> {
+    type Value = bool;
+
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("an object with an \"observations\" array")
+    }
+
+    fn visit_map<A: serde::de::MapAccess<'de>>(self, mut map: A) -> Result<bool, A::Error> {
+        let mut found = false;
+        while let Some(key) = map.next_key::<String>()? {
+            if key == "observations" && !found {
+                map.next_value_seed(Items(&mut *self.0))?;
+                found = true;
+            } else {
+                map.next_value::<serde::de::IgnoredAny>()?;
+            }
+        }
+        Ok(found)
+    }
+}
+
+struct Items<'a>(&'a mut JsonItems);
+
+impl<'de> serde::de::DeserializeSeed<'de> for Items<'_> {
+    type Value = ();
+
+    fn deserialize<D: serde::Deserializer<'de>>(self, d: D) -> Result<(), D::Error> {
+        d.deserialize_seq(self)
+    }
+}
+
+impl<'de> serde::de::Visitor<'de> for Items<'_> {
+    type Value = ();
+
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("an array of observations")
+    }
+
+    fn visit_seq<A: serde::de::SeqAccess<'de>>(self, mut seq: A) -> Result<(), A::Error> {
+        while let Some(item) = seq.next_element::<serde_json::Value>()? {
+            self.0.item(&item);
+        }
+        Ok(())
+    }
+}
+
+/// The observations and problems of a JSON upload, item by item.
+#[derive(Default)]
+struct JsonItems {
+    out: Vec<Observation>,
+    problems: Found,
+    periods: Periods,
+    seen: u64,
+}
+
+impl JsonItems {
+    fn item(&mut self, item: &serde_json::Value) {
+        self.seen += 1;
+        let n = self.seen;
         let Some(object) = item.as_object() else {
-            problems.push(RowProblem::item(
+            self.problems.push(RowProblem::item(
                 n,
                 "expected an object with period_start and value",
             ));
-            continue;
+            return;
         };
         if let Some(other) = object
             .keys()
             .find(|k| *k != "period_start" && *k != "value")
         {
-            problems.push(RowProblem::item(n, format!("unknown field {other:?}")));
-            continue;
+            self.problems.push(RowProblem::item(
+                n,
+                format!("unknown field {}", echo(other)),
+            ));
+            return;
         }
         let p = match object.get("period_start") {
             Some(serde_json::Value::String(s)) => period(s.trim()),
@@ -260,32 +387,60 @@ pub fn from_json(body: &serde_json::Value) -> Result<Vec<Observation>, Vec<RowPr
         let v = match object.get("value") {
             Some(serde_json::Value::Number(x)) => x
                 .as_f64()
-                .filter(|v| v.is_finite())
-                .ok_or_else(|| "non-finite value".to_string()),
+                .ok_or_else(|| "non-finite value".to_string())
+                .and_then(checked),
             None | Some(serde_json::Value::Null) => Err("missing value".into()),
             Some(_) => Err("value must be a number".into()),
         };
         match (p, v) {
-            (Ok(at), Ok(v)) => match periods.check(at, n, "item") {
-                Ok(()) => out.push(Observation {
+            (Ok(at), Ok(v)) => match self.periods.check(at, n, "item") {
+                Ok(()) => self.out.push(Observation {
                     period_start: at,
                     value: v,
                 }),
-                Err(reason) => problems.push(RowProblem::item(n, reason)),
+                Err(reason) => self.problems.push(RowProblem::item(n, reason)),
             },
             (p, v) => {
                 let reasons: Vec<String> = [p.err(), v.err()].into_iter().flatten().collect();
-                problems.push(RowProblem::item(n, reasons.join("; ")));
+                self.problems.push(RowProblem::item(n, reasons.join("; ")));
             }
         }
     }
-    finish(out, problems)
 }
 
-fn finish(
-    mut out: Vec<Observation>,
-    problems: Vec<RowProblem>,
-) -> Result<Vec<Observation>, Vec<RowProblem>> {
+/// The most problems an answer lists one by one; a last entry counts the rest, so a hostile
+/// or badly broken file cannot make an answer many times its own size.
+pub const PROBLEMS_LISTED: usize = 10_000;
+
+/// The problems found so far: the first [`PROBLEMS_LISTED`], and how many more.
+#[derive(Default)]
+struct Found {
+    listed: Vec<RowProblem>,
+    more: u64,
+}
+
+impl Found {
+    fn push(&mut self, p: RowProblem) {
+        if self.listed.len() < PROBLEMS_LISTED {
+            self.listed.push(p);
+        } else {
+            self.more += 1;
+        }
+    }
+}
+
+fn finish(mut out: Vec<Observation>, found: Found) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    let mut problems = found.listed;
+    if found.more > 0 {
+        problems.push(RowProblem {
+            line: None,
+            item: None,
+            reason: format!(
+                "and {} more lines or items with problems, not listed",
+                found.more
+            ),
+        });
+    }
     if !problems.is_empty() {
         return Err(problems);
     }

@@ -39,16 +39,25 @@ impl Timestamp {
 
     /// Parses any RFC 3339 time (a `+` that arrived as a space in a query string is accepted)
     /// or a bare date, which means 00:00:00Z.
+    ///
+    /// Only years 0001 to 9999 (in UTC) are times here, so that every stored time has the
+    /// same width and text order is time order on every database.
     pub fn parse(text: &str) -> Result<Timestamp, TimeParseError> {
         let trimmed = text.trim();
-        if let Ok(date) = NaiveDate::parse_from_str(trimmed, "%Y-%m-%d")
-            && trimmed.len() == 10
-        {
+        let bad = || TimeParseError(text.to_string());
+        // YYYY-MM-DD exactly: chrono's %Y would also take signs and other widths.
+        let digits_at = |i: usize| trimmed.as_bytes().get(i).is_some_and(u8::is_ascii_digit);
+        let bare = trimmed.len() == 10
+            && [0, 1, 2, 3, 5, 6, 8, 9].iter().all(|&i| digits_at(i))
+            && trimmed.as_bytes()[4] == b'-'
+            && trimmed.as_bytes()[7] == b'-';
+        if bare {
+            let date = NaiveDate::parse_from_str(trimmed, "%Y-%m-%d").map_err(|_| bad())?;
             let t = date
                 .and_hms_opt(0, 0, 0)
                 .expect("midnight exists")
                 .and_utc();
-            return Ok(Timestamp(t));
+            return Timestamp(t).in_range().ok_or_else(bad);
         }
         let mut candidate = trimmed.to_string();
         // "2026-03-01T09:30:00 01:00": the '+' of the offset became a space in a query string.
@@ -56,8 +65,14 @@ impl Timestamp {
             candidate.replace_range(pos..pos + 1, "+");
         }
         DateTime::parse_from_rfc3339(&candidate)
-            .map(|t| Timestamp::from_datetime(t.with_timezone(&Utc)))
-            .map_err(|_| TimeParseError(text.to_string()))
+            .ok()
+            .and_then(|t| Timestamp::from_datetime(t.with_timezone(&Utc)).in_range())
+            .ok_or_else(bad)
+    }
+
+    fn in_range(self) -> Option<Timestamp> {
+        use chrono::Datelike;
+        (1..=9999).contains(&self.0.year()).then_some(self)
     }
 }
 

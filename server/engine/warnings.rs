@@ -17,7 +17,7 @@ pub const DEFAULT_CRITICAL_SHARE: f64 = 0.10;
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct Warning {
     /// Stable, for tools: `too_little_history`, `intervene_within_routine_variation`,
-    /// `never_reached`, `critical_often`.
+    /// `intervene_beyond_routine_variation`, `never_reached`, `critical_often`.
     pub code: &'static str,
     /// The reason in plain words.
     pub message: String,
@@ -80,36 +80,62 @@ pub fn warnings(
             number::format(round_for_text(l.lower)),
             number::format(round_for_text(l.upper))
         );
-        // (cut, is the line on routine variation's path, share of periods at or past it)
-        let mut checks: Vec<(&'static str, bool, f64)> = Vec::new();
+        // (cut, is the line inside the limits, is it past the far limit, share of periods
+        // at or past it)
+        let mut checks: Vec<(&'static str, bool, bool, f64)> = Vec::new();
         let bad = |zone: &str| bt.zones.get(zone).copied().unwrap_or(0);
         match cuts.direction() {
-            Direction::HigherIsBetter => checks.push((
-                "intervene",
-                value_of("intervene") > l.lower,
-                share(bad("critical") + bad("intervene"), count),
-            )),
-            Direction::LowerIsBetter => checks.push((
-                "intervene",
-                value_of("intervene") < l.upper,
-                share(bad("critical") + bad("intervene"), count),
-            )),
+            Direction::HigherIsBetter => {
+                let i = value_of("intervene");
+                checks.push((
+                    "intervene",
+                    i > l.lower && i < l.upper,
+                    i >= l.upper,
+                    share(bad("critical") + bad("intervene"), count),
+                ));
+            }
+            Direction::LowerIsBetter => {
+                let i = value_of("intervene");
+                checks.push((
+                    "intervene",
+                    i > l.lower && i < l.upper,
+                    i <= l.lower,
+                    share(bad("critical") + bad("intervene"), count),
+                ));
+            }
             Direction::TargetBand => {
                 let side = |s: &str| sides.and_then(|m| m.get(s)).copied().unwrap_or(0);
+                let (low, high) = (value_of("intervene_low"), value_of("intervene_high"));
                 checks.push((
                     "intervene_low",
-                    value_of("intervene_low") > l.lower,
+                    low > l.lower && low < l.upper,
+                    low >= l.upper,
                     share(side("low"), count),
                 ));
                 checks.push((
                     "intervene_high",
-                    value_of("intervene_high") < l.upper,
+                    high > l.lower && high < l.upper,
+                    high <= l.lower,
                     share(side("high"), count),
                 ));
             }
         }
-        for (cut, inside, share) in checks {
-            if inside {
+        for (cut, inside, beyond, share) in checks {
+            if beyond {
+                out.push(Warning {
+                    code: "intervene_beyond_routine_variation",
+                    message: format!(
+                        "The {} line ({}) lies past the whole range of routine variation (natural \
+                         process limits {range}): it would fire on most periods, about {} of \
+                         this history.",
+                        cut.replace('_', " "),
+                        number::format(value_of(cut)),
+                        percent(share)
+                    ),
+                    cut: Some(cut),
+                    share: Some(share),
+                });
+            } else if inside {
                 out.push(Warning {
                     code: "intervene_within_routine_variation",
                     message: format!(

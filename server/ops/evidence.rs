@@ -61,6 +61,13 @@ fn may_upload(by: &Uploader<'_>, metric: &Metric) -> OpResult<()> {
     }
 }
 
+/// Checks, before a body is read, that `by` may upload history for `key` (the upload checks
+/// again inside its transaction).
+pub async fn may_upload_to(store: &Store, by: &Uploader<'_>, key: &str) -> OpResult<()> {
+    let metric = metrics::get(store, key).await?;
+    may_upload(by, &metric)
+}
+
 /// Reads an upload; every bad line is named.
 pub fn parse(
     format: Format,
@@ -69,14 +76,7 @@ pub fn parse(
 ) -> Result<Vec<Observation>, Vec<RowProblem>> {
     match format {
         Format::Csv => observations::from_csv(bytes, progress),
-        Format::Json => match serde_json::from_slice::<serde_json::Value>(bytes) {
-            Ok(v) => observations::from_json(&v),
-            Err(e) => Err(vec![RowProblem {
-                line: Some(e.line() as u64),
-                item: None,
-                reason: format!("not JSON: {e}"),
-            }]),
-        },
+        Format::Json => observations::from_json_bytes(bytes),
     }
 }
 

@@ -754,7 +754,11 @@ on_both_backends! {
         let (status, _, _) = post_upload(&owner, &[("_csrf", "forged"), ("mode", "merge")], Some(&weekly(30))).await;
         assert_eq!(status, 403);
         let (status, _, _) = post_upload(&owner, &[("mode", "merge")], Some(&weekly(30))).await;
+        assert_eq!(status, 403, "no token");
+        let (status, _, _) = post_upload(&owner, &[("mode", "merge"), ("_csrf", &csrf)], Some(&weekly(30))).await;
         assert_eq!(status, 403, "the token must come first");
+        let (status, _, page) = post_upload(&owner, &[("_csrf", &csrf), ("mode", "append")], Some(&weekly(30))).await;
+        assert_eq!(status, 400, "an unknown mode: {page}");
         assert_eq!(team.app.event_count().await, before);
         let reviewer = team.app.signed_in("hana").await;
         let reviewer_csrf = reviewer.csrf_on(&format!("/metrics/{METRIC}")).await;
@@ -827,4 +831,117 @@ async fn uploads_past_the_json_limit_work_and_past_the_upload_limit_answer_413()
     assert_eq!(status, 413, "{body}");
     assert_eq!(body["error"]["code"], "too_large");
     assert_eq!(team.app.event_count().await, before);
+}
+
+#[test]
+fn a_line_past_the_far_limit_is_said_to_fire_on_most_periods() {
+    let shades = Shades::new(3).unwrap();
+    let long: Vec<f64> = NIST_FLOW.iter().cycle().take(40).copied().collect();
+    let limits = process_limits(&long).unwrap();
+    // Intervene at 60 is above the upper limit (about 55.9): nearly every period reaches it.
+    let cuts = hib_cuts(40.0, 60.0, 70.0, 80.0);
+    let bt = backtest(&cuts, shades, &long);
+    let w = warnings(&cuts, &bt, Some(&limits), 0.1);
+    let beyond = w
+        .iter()
+        .find(|w| w.code == "intervene_beyond_routine_variation")
+        .unwrap();
+    assert_eq!(beyond.share, Some(1.0));
+    assert!(
+        beyond
+            .message
+            .contains("past the whole range of routine variation"),
+        "{}",
+        beyond.message
+    );
+    assert!(
+        beyond.message.contains("about 100 % of this history"),
+        "{}",
+        beyond.message
+    );
+    assert!(
+        !codes(&w).contains(&"intervene_within_routine_variation"),
+        "not inside: {w:?}"
+    );
+    // The same for lower_is_better below the lower limit.
+    let lib = CutSet::new(Direction::LowerIsBetter, [60.0, 44.0, 30.0, 20.0]).unwrap();
+    let bt = backtest(&lib, shades, &long);
+    let w = warnings(&lib, &bt, Some(&limits), 0.1);
+    assert!(
+        codes(&w).contains(&"intervene_beyond_routine_variation"),
+        "{w:?}"
+    );
+}
+
+#[test]
+fn only_four_digit_years_are_times() {
+    use cutpoints::domain::Timestamp;
+    for text in [
+        "+99999-1-1",
+        "-999-01-01",
+        "+2026-3-1",
+        "2026-3-01x",
+        "9999-12-31T23:00:00-05:00",
+        "0000-01-01",
+    ] {
+        assert!(Timestamp::parse(text).is_err(), "{text}");
+    }
+    assert_eq!(
+        Timestamp::parse("2026-03-01").unwrap().to_string(),
+        "2026-03-01T00:00:00.000000Z"
+    );
+    assert!(Timestamp::parse("9999-12-31T23:59:59Z").is_ok());
+    assert!(Timestamp::parse("0001-01-01").is_ok());
+}
+
+#[test]
+fn a_bad_first_line_is_reported_not_taken_for_a_header() {
+    let problems = from_csv(b"2026-02-30,abc\n2026-03-01,1\n", |_| {}).unwrap_err();
+    assert_eq!(problems.len(), 1);
+    assert_eq!(problems[0].line, Some(1));
+    // Blank lines before the header do not use up its place.
+    let rows = from_csv(b"\n  \nperiod,value\n2026-03-01,1\n", |_| {}).unwrap();
+    assert_eq!(rows.len(), 1);
+    // Values beyond +-1e150 are refused (their squares would overflow), and long fields are
+    // cut short in the reason.
+    let long = "9".repeat(500);
+    let problems = from_csv(
+        format!("2026-03-01,1e200\n2026-03-02,x{long}\n").as_bytes(),
+        |_| {},
+    )
+    .unwrap_err();
+    assert!(problems[0].reason.contains("too large"), "{problems:?}");
+    assert!(problems[1].reason.len() < 120, "{problems:?}");
+}
+
+#[test]
+fn a_broken_file_lists_ten_thousand_problems_and_counts_the_rest() {
+    let text: String = (0..10_005).map(|i| format!("bad{i},x\n")).collect();
+    let problems = from_csv(text.as_bytes(), |_| {}).unwrap_err();
+    assert_eq!(problems.len(), 10_001);
+    assert_eq!(problems[9_999].line, Some(10_000));
+    assert!(
+        problems[10_000].reason.contains("and 5 more"),
+        "{:?}",
+        problems[10_000]
+    );
+}
+
+#[test]
+fn json_bytes_are_read_item_by_item_with_the_same_answers() {
+    use cutpoints::domain::observations::from_json_bytes;
+    let body = json!({"note": {"ignored": [1, 2]}, "observations": [
+        {"period_start": "2026-01-12", "value": 2.5},
+        {"period_start": "2026-01-05", "value": 1},
+    ]});
+    let bytes = serde_json::to_vec(&body).unwrap();
+    assert_eq!(from_json_bytes(&bytes).unwrap(), from_json(&body).unwrap());
+    let bad =
+        json!({"observations": [{"period_start": "2026-01-05", "value": 1}, {"value": 2}, 3]});
+    let problems = from_json_bytes(&serde_json::to_vec(&bad).unwrap()).unwrap_err();
+    let items: Vec<u64> = problems.iter().map(|p| p.item.unwrap()).collect();
+    assert_eq!(items, [2, 3]);
+    assert!(from_json_bytes(br#"{"observations": 5}"#).is_err());
+    assert!(from_json_bytes(br#"{"other": []}"#).is_err());
+    assert!(from_json_bytes(br#"{"observations": []} trailing"#).is_err());
 }

@@ -100,6 +100,8 @@ pub async fn upload(
     ApiQuery(query): ApiQuery<UploadQuery>,
     request: Request,
 ) -> Result<Json<UploadReport>, ApiError> {
+    // Who may comes before what they sent, and before reading it.
+    evidence::may_upload_to(&state.store, &Uploader::User(caller.user()), key.as_str()).await?;
     let mode = mode(query.mode.as_deref())?;
     let content_type = request
         .headers()

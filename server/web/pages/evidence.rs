@@ -7,8 +7,8 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde_json::{Value, json};
 
-use crate::domain::number;
 use crate::domain::thresholds::{CutSet, Shades};
+use crate::domain::{MetricKey, number};
 use crate::engine::warnings::{DEFAULT_CRITICAL_SHARE, percent, round_for_text};
 use crate::ops::evidence::{self, Format, History, Uploader};
 use crate::store::observations::Mode;
@@ -171,48 +171,59 @@ pub fn section(
 }
 
 /// `POST /metrics/{key}/observations`: the upload form (a CSV file and a mode). Its CSRF
-/// token travels in the multipart body, so it is checked here, before anything else is read
-/// or done, against the session's (the middleware lets only this form through unchecked).
+/// token travels in the multipart body as the first field, so it is checked here, before any
+/// other field is read, against the session's (the middleware lets only this form through
+/// unchecked).
 pub async fn upload(
     State(state): State<AppState>,
     PageSession(session): PageSession,
     Path(key): Path<String>,
     mut form: Multipart,
 ) -> Result<Response, PageError> {
+    let key = MetricKey::parse(&key).map_err(|e| PageError(ApiError::not_found(e.to_string())))?;
+    let unreadable = |e: axum::extract::multipart::MultipartError| {
+        let status = e.status();
+        PageError(ApiError::new(
+            status,
+            if status == StatusCode::PAYLOAD_TOO_LARGE {
+                "too_large"
+            } else {
+                "bad_request"
+            },
+            format!("the form could not be read: {}", e.body_text()),
+        ))
+    };
     let bad = |m: String| PageError(ApiError::bad_request(m));
-    let mut csrf = None;
+    let forged = || {
+        PageError(ApiError::forbidden(
+            "this form has expired or did not come from cutpoints: go back, reload the page and try again",
+        ))
+    };
+    // The token is the form's first field, checked before any other field is read.
+    let first = form.next_field().await.map_err(unreadable)?;
+    let token = match first {
+        Some(field) if field.name() == Some(CSRF_FIELD) => {
+            field.text().await.map_err(unreadable)?
+        }
+        _ => return Err(forged()),
+    };
+    if !crate::auth::secret::constant_time_eq(&token, &session.csrf_token) {
+        return Err(forged());
+    }
     let mut mode = Mode::Merge;
     let mut file = None;
-    while let Some(field) = form
-        .next_field()
-        .await
-        .map_err(|e| bad(format!("the form could not be read: {e}")))?
-    {
-        let name = field.name().unwrap_or("").to_string();
-        if csrf.is_none() && name != CSRF_FIELD {
-            break; // the token comes first; without it nothing else is read
-        }
-        let data = field
-            .bytes()
-            .await
-            .map_err(|e| bad(format!("the form could not be read: {e}")))?;
-        match name.as_str() {
-            CSRF_FIELD => csrf = Some(String::from_utf8_lossy(&data).into_owned()),
+    while let Some(field) = form.next_field().await.map_err(unreadable)? {
+        match field.name().unwrap_or("") {
             "mode" => {
-                mode = match &data[..] {
-                    b"replace" => Mode::Replace,
-                    _ => Mode::Merge,
+                mode = match field.text().await.map_err(unreadable)?.as_str() {
+                    "merge" => Mode::Merge,
+                    "replace" => Mode::Replace,
+                    other => return Err(bad(format!("mode {other:?}: expected merge or replace"))),
                 }
             }
-            "file" => file = Some(data),
+            "file" => file = Some(field.bytes().await.map_err(unreadable)?),
             _ => {}
         }
-    }
-    let sent = csrf.unwrap_or_default();
-    if !crate::auth::secret::constant_time_eq(&sent, &session.csrf_token) {
-        return Err(PageError(ApiError::forbidden(
-            "this form has expired or did not come from cutpoints: go back, reload the page and try again",
-        )));
     }
     let Some(file) = file.filter(|f| !f.is_empty()) else {
         return Err(bad("choose a CSV file to upload".into()));
@@ -220,7 +231,7 @@ pub async fn upload(
     match evidence::upload(
         &state.store,
         Uploader::User(&session.user),
-        &key,
+        key.as_str(),
         mode,
         Format::Csv,
         file,
