@@ -92,11 +92,16 @@ pub async fn upload(
 ) -> OpResult<UploadReport> {
     let metric = metrics::get(store, key).await?;
     may_upload(&by, &metric)?;
-    let sha256 = hex::encode(Sha256::digest(&bytes));
-    let parsed = tokio::task::spawn_blocking(move || parse(format, &bytes, |_| {}))
-        .await
-        .map_err(|e| StoreError::Config(format!("parsing stopped: {e}")))?
-        .map_err(OpError::InvalidRows)?;
+    // Hashing and reading tens of megabytes is CPU work: off the async threads.
+    let (sha256, parsed) = tokio::task::spawn_blocking(move || {
+        (
+            hex::encode(Sha256::digest(&bytes)),
+            parse(format, &bytes, |_| {}),
+        )
+    })
+    .await
+    .map_err(|e| StoreError::Config(format!("parsing stopped: {e}")))?;
+    let parsed = parsed.map_err(OpError::InvalidRows)?;
     store_rows(store, by, key, mode, &parsed, &sha256, |_| {}).await
 }
 
