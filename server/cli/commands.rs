@@ -132,15 +132,32 @@ async fn serve(args: ServeArgs) -> anyhow::Result<()> {
         );
     }
     let signer = crate::publish::signing::load_or_create(&store, &args.key.signing_key).await?;
-    let listener = bind(&args.bind).await?;
+    let threads = match args.http_threads {
+        0 => std::thread::available_parallelism().map_or(1, |n| n.get()),
+        n => n,
+    };
+    let addr = tokio::net::lookup_host(&args.bind)
+        .await
+        .ok()
+        .and_then(|mut found| found.next())
+        .with_context(|| format!("--bind {:?} is not an address and port", args.bind))?;
+    let listeners = crate::web::listeners(addr, threads)
+        .await
+        .with_context(|| {
+            format!(
+                "cannot listen on {} (is another server using it? choose one with --bind)",
+                args.bind
+            )
+        })?;
     tracing::info!(
-        address = %listener.local_addr()?,
+        address = %listeners[0].local_addr()?,
+        threads = listeners.len(),
         database = store.backend().name(),
         key_id = signer.key_id(),
         "cutpoints is serving"
     );
-    crate::web::serve(
-        listener,
+    crate::web::serve_on_threads(
+        listeners,
         AppState::new(store, config, signer),
         shutdown_signal(),
     )

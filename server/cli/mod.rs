@@ -58,6 +58,9 @@ pub struct ServeArgs {
     /// Let anyone read the published set, the signing keys and evaluate without a token.
     #[arg(long, env = "CUTPOINTS_PUBLIC_READ")]
     pub public_read: bool,
+    /// Threads answering HTTP, each with its own listening socket (0: one per CPU).
+    #[arg(long, env = "CUTPOINTS_HTTP_THREADS", default_value_t = 0)]
+    pub http_threads: usize,
     /// Do not apply migrations at start-up (the database role may not change the schema);
     /// refuse to start if any are missing. See docs/postgres-app-role.sql.
     #[arg(long, env = "CUTPOINTS_SKIP_MIGRATIONS")]

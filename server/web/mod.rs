@@ -284,6 +284,90 @@ pub fn app(state: AppState) -> Router {
         .with_state(state)
 }
 
+/// Listening sockets for [`serve_on_threads`]: `count` sockets on one address (SO_REUSEPORT,
+/// so the kernel spreads new connections over them). With port 0 the first socket picks the
+/// port and the others share it. Where the platform has no SO_REUSEPORT, one socket.
+pub async fn listeners(
+    addr: SocketAddr,
+    count: usize,
+) -> std::io::Result<Vec<std::net::TcpListener>> {
+    // A plain bind first: SO_REUSEPORT would let a second server on the same port start
+    // and silently take half the connections; this way it fails as it always did.
+    if addr.port() != 0 {
+        drop(std::net::TcpListener::bind(addr)?);
+    }
+    let mut out = Vec::new();
+    let mut at = addr;
+    for _ in 0..count.max(1) {
+        let socket = if at.is_ipv4() {
+            tokio::net::TcpSocket::new_v4()?
+        } else {
+            tokio::net::TcpSocket::new_v6()?
+        };
+        socket.set_reuseaddr(true)?;
+        #[cfg(unix)]
+        socket.set_reuseport(true)?;
+        socket.bind(at)?;
+        let listener = socket.listen(1024)?;
+        at = listener.local_addr()?;
+        out.push(listener.into_std()?);
+        if cfg!(not(unix)) {
+            break;
+        }
+    }
+    Ok(out)
+}
+
+/// Serves `app(state)` with one OS thread per listener, each running its own single-threaded
+/// runtime, so that a request is read, answered and written on one thread, with no wake-ups
+/// across threads (the cost that dominated small answers such as 304s; docs/benchmarks.md).
+/// When `shutdown` completes, every thread stops accepting and finishes its requests in
+/// flight. The store's pool and the caches are shared by all threads.
+pub async fn serve_on_threads(
+    listeners: Vec<std::net::TcpListener>,
+    state: AppState,
+    shutdown: impl Future<Output = ()> + Send + 'static,
+) -> std::io::Result<()> {
+    let (stop, stopped) = tokio::sync::watch::channel(false);
+    let mut threads = Vec::new();
+    for (i, listener) in listeners.into_iter().enumerate() {
+        let state = state.clone();
+        let mut stopped = stopped.clone();
+        let thread = std::thread::Builder::new()
+            .name(format!("cutpoints-http-{i}"))
+            .spawn(move || -> std::io::Result<()> {
+                let runtime = tokio::runtime::Builder::new_current_thread()
+                    .enable_all()
+                    .build()?;
+                runtime.block_on(async move {
+                    listener.set_nonblocking(true)?;
+                    let listener = TcpListener::from_std(listener)?;
+                    axum::serve(
+                        listener,
+                        app(state).into_make_service_with_connect_info::<SocketAddr>(),
+                    )
+                    .with_graceful_shutdown(async move {
+                        let _ = stopped.wait_for(|stop| *stop).await;
+                    })
+                    .await
+                })
+            })?;
+        threads.push(thread);
+    }
+    shutdown.await;
+    let _ = stop.send(true);
+    tokio::task::spawn_blocking(move || {
+        for thread in threads {
+            thread
+                .join()
+                .map_err(|_| std::io::Error::other("a serving thread panicked"))??;
+        }
+        Ok(())
+    })
+    .await
+    .map_err(std::io::Error::other)?
+}
+
 /// Serves `app(state)` on `listener` until `shutdown` completes, then finishes the requests
 /// in flight.
 pub async fn serve(

@@ -149,3 +149,52 @@ async fn serve_runs_on_the_named_database_and_stops_on_sigterm() {
     terminate(&child);
     assert!(child.wait().unwrap().success());
 }
+
+crate::on_both_backends! {
+    async fn serve_answers_from_several_threads_sharing_one_pool_and_refuses_a_taken_port(app) {
+        app.add_user("rosa", "admin").await;
+        let token = app.token("rosa", cutpoints::store::tokens::Scope::Read).await;
+        let port = std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port();
+        let bind = format!("127.0.0.1:{port}");
+        let start = |threads: &str| {
+            Command::new(env!("CARGO_BIN_EXE_cutpoints"))
+                .args(["serve", "--bind", &bind, "--http-threads", threads])
+                .env("CUTPOINTS_DATABASE_URL", &app.store_url)
+                .env("CUTPOINTS_SIGNING_KEY", &app.key_file)
+                .env("CUTPOINTS_LOG", "warn")
+                .stdout(Stdio::null())
+                .stderr(Stdio::piped())
+                .spawn()
+                .unwrap()
+        };
+        let mut child = start("3");
+        let base = format!("http://{bind}");
+        let http = reqwest::Client::new();
+        let mut up = false;
+        for _ in 0..200 {
+            if let Ok(r) = http.get(format!("{base}/healthz")).send().await {
+                up = r.status() == 200;
+                break;
+            }
+            tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+        }
+        assert!(up, "serve answers /healthz");
+        // Many connections at once, spread by the kernel over the threads, each reading the
+        // database through the one shared pool.
+        let calls = (0..48).map(|i| {
+            let http = reqwest::Client::new();
+            let url = if i % 2 == 0 { format!("{base}/api/v1/metrics") } else { format!("{base}/api/v1/published") };
+            let token = token.clone();
+            tokio::spawn(async move { http.get(url).bearer_auth(token).send().await.unwrap().status().as_u16() })
+        });
+        for call in calls {
+            assert_eq!(call.await.unwrap(), 200);
+        }
+        // A second server on the same port is refused, as without shared sockets.
+        let second = start("2").wait_with_output().unwrap();
+        assert!(!second.status.success());
+        assert!(String::from_utf8_lossy(&second.stderr).contains("cannot listen"), "{}", String::from_utf8_lossy(&second.stderr));
+        terminate(&child);
+        assert!(child.wait().unwrap().success(), "graceful shutdown on every thread");
+    }
+}
