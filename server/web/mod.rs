@@ -57,21 +57,35 @@ impl Default for WebConfig {
 
 /// What every handler can reach.
 #[derive(Clone, Debug)]
-pub struct AppState {
+pub struct AppState(Arc<Shared>);
+
+/// The parts of [`AppState`]. Kept behind one `Arc`, so that the several clones a request
+/// makes (router, middleware, handler) each cost one reference count, not one per part: on
+/// the serving threads those counts are shared memory that every request touches.
+#[derive(Debug)]
+pub struct Shared {
     pub store: Store,
     pub config: Arc<WebConfig>,
     pub publisher: Arc<crate::publish::Publisher>,
     pub tokens: Arc<token_cache::TokenCache>,
 }
 
+impl std::ops::Deref for AppState {
+    type Target = Shared;
+
+    fn deref(&self) -> &Shared {
+        &self.0
+    }
+}
+
 impl AppState {
     pub fn new(store: Store, config: WebConfig, signer: crate::publish::Signer) -> AppState {
-        AppState {
+        AppState(Arc::new(Shared {
             store,
             config: Arc::new(config),
             publisher: Arc::new(crate::publish::Publisher::new(signer)),
             tokens: Arc::default(),
-        }
+        }))
     }
 }
 
