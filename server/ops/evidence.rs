@@ -447,8 +447,8 @@ pub async fn proposal_backtest(
     let metric = metrics::get(store, &view.metric).await?;
     let history = history(store, metric, window).await?;
     let content = &latest.content;
-    let backtest = backtest_view(
-        Subject {
+    let tested = Tested {
+        subject: Subject {
             kind: "proposal",
             number: latest.number,
             proposal: Some(id),
@@ -456,30 +456,15 @@ pub async fn proposal_backtest(
             cuts: cuts_json(&content.cuts),
             shades: content.shades.get(),
         },
-        &content.cuts,
-        content.shades,
+        cuts: &content.cuts,
+        shades: content.shades,
+    };
+    let (backtest, compared_with, differences) = compared(
         &history,
+        tested,
+        previous.as_ref().map(Tested::version),
         critical_share,
     );
-    let compared_with = previous.as_ref().map(|v| {
-        backtest_view(
-            subject_of_version(v),
-            &v.content.cuts,
-            v.content.shades,
-            &history,
-            critical_share,
-        )
-    });
-    let differences = previous
-        .as_ref()
-        .map(|v| {
-            differences(
-                (&v.content.cuts, v.content.shades),
-                (&content.cuts, content.shades),
-                &history,
-            )
-        })
-        .unwrap_or_default();
     Ok((
         ProposalBacktest {
             proposal: id,
@@ -531,32 +516,53 @@ pub async fn version_backtest(
     let version = find(number)?;
     let other = compare.map(find).transpose()?;
     let history = history(store, metric, window).await?;
-    let view = |v: &VersionRecord| {
-        backtest_view(
-            subject_of_version(v),
-            &v.content.cuts,
-            v.content.shades,
-            &history,
-            critical_share,
-        )
-    };
+    let (backtest, compared_with, differences) = compared(
+        &history,
+        Tested::version(&version),
+        other.as_ref().map(Tested::version),
+        critical_share,
+    );
     Ok(VersionBacktest {
         metric: history.metric.key.to_string(),
         count: history.points.len(),
         limits: history.limits,
-        backtest: view(&version),
-        compared_with: other.as_ref().map(view),
-        differences: other
-            .as_ref()
-            .map(|o| {
-                differences(
-                    (&o.content.cuts, o.content.shades),
-                    (&version.content.cuts, version.content.shades),
-                    &history,
-                )
-            })
-            .unwrap_or_default(),
+        backtest,
+        compared_with,
+        differences,
     })
+}
+
+/// A cut set to backtest, with what the answer calls it.
+struct Tested<'a> {
+    subject: Subject,
+    cuts: &'a CutSet,
+    shades: Shades,
+}
+
+impl<'a> Tested<'a> {
+    fn version(v: &'a VersionRecord) -> Tested<'a> {
+        Tested {
+            subject: subject_of_version(v),
+            cuts: &v.content.cuts,
+            shades: v.content.shades,
+        }
+    }
+}
+
+/// The backtest of `tested` and, when given, of `other` beside it, with the periods where
+/// they differ (`first` under `other`, `second` under `tested`).
+fn compared(
+    history: &History,
+    tested: Tested<'_>,
+    other: Option<Tested<'_>>,
+    critical_share: f64,
+) -> (BacktestView, Option<BacktestView>, Vec<DifferenceView>) {
+    let differences = other
+        .as_ref()
+        .map(|o| differences((o.cuts, o.shades), (tested.cuts, tested.shades), history))
+        .unwrap_or_default();
+    let view = |t: Tested<'_>| backtest_view(t.subject, t.cuts, t.shades, history, critical_share);
+    (view(tested), other.map(view), differences)
 }
 
 /// A window of stored observations, for the API's listing.

@@ -183,3 +183,14 @@ pub fn client_addr(parts: &Parts, state: &AppState) -> String {
         .map(|c| c.0.ip().to_string())
         .unwrap_or_else(|| "unknown".to_string())
 }
+
+/// An optional time from a query parameter: empty is absent; anything else must be RFC 3339
+/// or a bare date, or the request answers 400 naming the parameter.
+pub fn time_param(name: &str, text: &str) -> Result<Option<crate::domain::Timestamp>, ApiError> {
+    if text.trim().is_empty() {
+        return Ok(None);
+    }
+    crate::domain::Timestamp::parse(text)
+        .map(Some)
+        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
+}

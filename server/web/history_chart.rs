@@ -17,8 +17,8 @@ use std::fmt::Write as _;
 use chrono::{DateTime, Datelike, NaiveDate, Utc};
 
 use super::svg::{
-    Axis, GRID, INK, WHITE, WIDTH, ascending_cuts, at, colours, describe_zone, escape, line,
-    nice_axis, text, text_width, zones_left_to_right,
+    Axis, GRID, INK, WHITE, WIDTH, ascending_cuts, at, colours, escape, line, nice_axis, text,
+    text_width, zones_left_to_right,
 };
 use crate::domain::Timestamp;
 use crate::domain::number;
@@ -802,25 +802,12 @@ fn describe(chart: &HistoryChart<'_>, stats: Option<&Stats>, axis: &Axis) -> Str
         } else {
             format!("drawn in the strip captioned {short}")
         };
-        let cuts = ascending_cuts(bands.cuts);
-        let zones: Vec<String> = zones_left_to_right(bands.cuts.direction())
-            .iter()
-            .enumerate()
-            .map(|(i, &zone)| describe_zone(zone, i, &cuts))
-            .collect();
-        let named: Vec<String> = bands
-            .cuts
-            .named()
-            .iter()
-            .map(|(name, value)| format!("{name} {}", number::format(*value)))
-            .collect();
+        let (zones, named) = crate::web::svg::zones_and_cuts_in_words(bands.cuts);
         let _ = write!(
             desc,
-            " {} ({}), {shown}: zones {}; cut points {}.",
+            " {} ({}), {shown}: zones {zones}; cut points {named}.",
             bands.caption,
             bands.cuts.direction(),
-            zones.join(", "),
-            named.join(", ")
         );
     }
     if sets.is_empty() {

@@ -420,28 +420,32 @@ fn describe(unit: &str, rows: &[StripRow<'_>]) -> String {
     }
     desc.push('.');
     for row in rows {
-        let cuts = ascending_cuts(row.cuts);
-        let zones: Vec<String> = zones_left_to_right(row.cuts.direction())
-            .iter()
-            .enumerate()
-            .map(|(i, &zone)| describe_zone(zone, i, &cuts))
-            .collect();
-        let named: Vec<String> = row
-            .cuts
-            .named()
-            .iter()
-            .map(|(name, value)| format!("{name} {}", number::format(*value)))
-            .collect();
+        let (zones, named) = zones_and_cuts_in_words(row.cuts);
         let _ = write!(
             desc,
-            " {} ({}): {}; cut points {}.",
+            " {} ({}): {zones}; cut points {named}.",
             row.caption,
             row.cuts.direction(),
-            zones.join(", "),
-            named.join(", ")
         );
     }
     desc
+}
+
+/// A cut set in words for a picture's description: its zones from low to high values, and
+/// its cut points by name and value, each joined with commas.
+pub(crate) fn zones_and_cuts_in_words(cut_set: &CutSet) -> (String, String) {
+    let cuts = ascending_cuts(cut_set);
+    let zones: Vec<String> = zones_left_to_right(cut_set.direction())
+        .iter()
+        .enumerate()
+        .map(|(i, &zone)| describe_zone(zone, i, &cuts))
+        .collect();
+    let named: Vec<String> = cut_set
+        .named()
+        .iter()
+        .map(|(name, value)| format!("{name} {}", number::format(*value)))
+        .collect();
+    (zones.join(", "), named.join(", "))
 }
 
 /// The axis that fits every row's cut points.

@@ -360,3 +360,36 @@ macro_rules! on_both_backends {
         }
     )*};
 }
+
+/// Checks `svg` with the reference parser, Python's `xml.etree.ElementTree`; false when
+/// python3 is missing (reported as a skip, a failure under CI).
+pub fn parses_as_xml(svg: &str) -> bool {
+    use std::io::Write;
+    use std::process::{Command, Stdio};
+    let child = Command::new("python3")
+        .args([
+            "-c",
+            "import sys, xml.etree.ElementTree as ET; ET.fromstring(sys.stdin.buffer.read())",
+        ])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn();
+    let Ok(mut child) = child else {
+        missing_prerequisite("python3 (reference XML parser)");
+        return false;
+    };
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(svg.as_bytes())
+        .unwrap();
+    let output = child.wait_with_output().unwrap();
+    assert!(
+        output.status.success(),
+        "the reference XML parser refused the SVG: {}\n{svg}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    true
+}

@@ -3,9 +3,6 @@
 //! names in text, the zone strip's palette, escaping, no inline styles or scripts, a million
 //! points drawn small without losing their extremes, and the same bytes for the same input.
 
-use std::io::Write;
-use std::process::{Command, Stdio};
-
 use cutpoints::domain::Timestamp;
 use cutpoints::domain::number::format;
 use cutpoints::domain::thresholds::{CutSet, Direction};
@@ -135,36 +132,7 @@ fn bands_of(svg: &str) -> Vec<(&str, f64)> {
         .collect()
 }
 
-/// Checks `svg` with the reference parser, Python's `xml.etree.ElementTree`; false when
-/// python3 is missing (reported as a skip, a failure under CI).
-fn parses_as_xml(svg: &str) -> bool {
-    let child = Command::new("python3")
-        .args([
-            "-c",
-            "import sys, xml.etree.ElementTree as ET; ET.fromstring(sys.stdin.buffer.read())",
-        ])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn();
-    let Ok(mut child) = child else {
-        crate::helpers::missing_prerequisite("python3 (reference XML parser)");
-        return false;
-    };
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(svg.as_bytes())
-        .unwrap();
-    let output = child.wait_with_output().unwrap();
-    assert!(
-        output.status.success(),
-        "the reference XML parser refused the SVG: {}\n{svg}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    true
-}
+use crate::helpers::parses_as_xml;
 
 /// A million points a minute apart around 50, with one low of 10 and one high of 90.
 fn a_million_points() -> Vec<(Timestamp, f64)> {

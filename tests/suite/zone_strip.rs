@@ -3,9 +3,6 @@
 //! styles or scripts, and well-formed XML according to a reference parser (Python's
 //! `xml.etree.ElementTree`).
 
-use std::io::Write;
-use std::process::{Command, Stdio};
-
 use cutpoints::domain::number::format;
 use cutpoints::domain::thresholds::{CutSet, Direction, Shades};
 use cutpoints::engine::classify;
@@ -62,36 +59,7 @@ fn desc_of(svg: &str) -> &str {
     &svg[start..end]
 }
 
-/// Checks `svg` with the reference parser, Python's `xml.etree.ElementTree`; false when
-/// python3 is missing (reported as a skip, a failure under CI).
-fn parses_as_xml(svg: &str) -> bool {
-    let child = Command::new("python3")
-        .args([
-            "-c",
-            "import sys, xml.etree.ElementTree as ET; ET.fromstring(sys.stdin.read())",
-        ])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn();
-    let Ok(mut child) = child else {
-        crate::helpers::missing_prerequisite("python3 (reference XML parser)");
-        return false;
-    };
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(svg.as_bytes())
-        .unwrap();
-    let output = child.wait_with_output().unwrap();
-    assert!(
-        output.status.success(),
-        "the reference XML parser refused the SVG: {}\n{svg}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    true
-}
+use crate::helpers::parses_as_xml;
 
 #[test]
 fn every_direction_labels_every_zone_and_cut_point_in_text() {

@@ -8,13 +8,13 @@ use serde::Deserialize;
 
 use super::metrics::KeyPath;
 use super::openapi::{AuditView, ErrorBody};
-use crate::domain::{MetricKey, Timestamp};
+use crate::domain::MetricKey;
 use crate::ops::audit::{self, Extract};
 use crate::store::events::EventFilter;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;
-use crate::web::extract::ApiQuery;
+use crate::web::extract::{ApiQuery, time_param};
 
 /// Filters of an extract, as query parameters.
 #[derive(Deserialize, Default, Clone, utoipa::IntoParams)]
@@ -35,15 +35,6 @@ pub struct ExtractQuery {
     pub from: String,
     /// Only events recorded before this time.
     pub to: String,
-}
-
-fn time_param(name: &str, text: &str) -> Result<Option<Timestamp>, ApiError> {
-    if text.trim().is_empty() {
-        return Ok(None);
-    }
-    Timestamp::parse(text)
-        .map(Some)
-        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
 }
 
 impl ExtractQuery {

@@ -11,8 +11,8 @@ use serde::{Deserialize, Serialize};
 use super::metrics::KeyPath;
 use super::openapi::ErrorBody;
 use super::proposals::ProposalId;
+use crate::domain::MetricKey;
 use crate::domain::observations::Observation;
-use crate::domain::{MetricKey, Timestamp};
 use crate::ops::evidence::{
     self, Evidence, Format, ProposalBacktest, UploadReport, Uploader, VersionBacktest, Window,
 };
@@ -20,7 +20,7 @@ use crate::store::observations::Mode;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;
-use crate::web::extract::{ApiQuery, read_body};
+use crate::web::extract::{ApiQuery, read_body, time_param};
 
 /// The window and the critical share a reader chose.
 #[derive(Deserialize, Default, utoipa::IntoParams)]
@@ -35,20 +35,11 @@ pub struct WindowQuery {
     critical_share: Option<f64>,
 }
 
-fn time(name: &str, text: &str) -> Result<Option<Timestamp>, ApiError> {
-    if text.trim().is_empty() {
-        return Ok(None);
-    }
-    Timestamp::parse(text)
-        .map(Some)
-        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
-}
-
 impl WindowQuery {
     pub fn window(&self) -> Result<Window, ApiError> {
         Ok(Window {
-            from: time("from", &self.from)?,
-            to: time("to", &self.to)?,
+            from: time_param("from", &self.from)?,
+            to: time_param("to", &self.to)?,
         })
     }
 
@@ -207,8 +198,8 @@ pub async fn proposal(
     ApiQuery(query): ApiQuery<ProposalQuery>,
 ) -> Result<Json<ProposalBacktest>, ApiError> {
     let window = Window {
-        from: time("from", &query.from)?,
-        to: time("to", &query.to)?,
+        from: time_param("from", &query.from)?,
+        to: time_param("to", &query.to)?,
     };
     let share = evidence::critical_share(query.critical_share)?;
     let (backtest, _) =
@@ -260,8 +251,8 @@ pub async fn version(
     ApiQuery(query): ApiQuery<VersionQuery>,
 ) -> Result<Response, ApiError> {
     let window = Window {
-        from: time("from", &query.from)?,
-        to: time("to", &query.to)?,
+        from: time_param("from", &query.from)?,
+        to: time_param("to", &query.to)?,
     };
     let share = evidence::critical_share(query.critical_share)?;
     let backtest = evidence::version_backtest(

@@ -19,7 +19,7 @@ use crate::publish::document::Rendered;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;
-use crate::web::extract::{ApiJson, ApiQuery};
+use crate::web::extract::{ApiJson, ApiQuery, time_param};
 
 /// A reader of the published set: anyone signed in or holding a token (any scope), or anyone
 /// at all when the instance serves with `--public-read`.
@@ -48,20 +48,11 @@ pub struct TimesQuery {
     known_at: String,
 }
 
-fn time(name: &str, text: &str) -> Result<Option<Timestamp>, ApiError> {
-    if text.trim().is_empty() {
-        return Ok(None);
-    }
-    Timestamp::parse(text)
-        .map(Some)
-        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
-}
-
 impl TimesQuery {
     fn times(&self) -> Result<(Option<Timestamp>, Option<Timestamp>), ApiError> {
         Ok((
-            time("as_of", &self.as_of)?,
-            time("known_at", &self.known_at)?,
+            time_param("as_of", &self.as_of)?,
+            time_param("known_at", &self.known_at)?,
         ))
     }
 }
@@ -344,7 +335,7 @@ pub async fn evaluate(
             ),
         ));
     }
-    let as_of = time("as_of", req.as_of.as_deref().unwrap_or(""))?;
+    let as_of = time_param("as_of", req.as_of.as_deref().unwrap_or(""))?;
     let r = state.publisher.at(&state.store, as_of, None, None).await?;
     // Keys of the register, read once and only when some item has no version in force.
     let mut register: Option<std::collections::HashSet<String>> = None;
