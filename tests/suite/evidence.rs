@@ -775,6 +775,15 @@ on_both_backends! {
         assert!(html.contains("30 periods stored or updated"), "notice");
         assert!(html.contains("30 periods from 2025-01-06 to 2025-07-28"), "summary");
         assert!(html.contains("Natural process limits"), "limits in words");
+        // A chosen window: every figure over those periods only.
+        let (_, html) = owner.get_text(&format!("/metrics/{METRIC}?from=2025-01-06&to=2025-03-17")).await;
+        assert!(html.contains("10 periods from 2025-01-06 to 2025-03-10"), "the window");
+        assert!(html.contains("45.82 to 55.8"), "the NIST limits over the first ten weeks");
+        assert!(html.contains("value=\"2025-03-17\""), "the form keeps the window");
+        let (status, html) = owner.get_text(&format!("/metrics/{METRIC}?from=soon")).await;
+        assert_eq!(status, 200);
+        assert!(html.contains("showing the whole history"), "a bad window is said, not fatal");
+        assert!(html.contains("30 periods from"));
 
         // The proposal page: chart with both sets, backtest table, warnings.
         team.agree(hib(40.0, 48.0, 60.0, 70.0, "First agreed lines.")).await;

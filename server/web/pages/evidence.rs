@@ -40,6 +40,30 @@ fn num(x: f64) -> String {
     number::format(round_for_text(x))
 }
 
+/// The window a page's `from` and `to` fields choose (dates or RFC 3339 times; `to` is not
+/// included), with a message for the reader when one does not read as a time or the two are
+/// the wrong way round (the page then shows the whole history).
+pub fn window(from: &str, to: &str) -> (evidence::Window, Option<String>) {
+    use crate::domain::Timestamp;
+    let read = |name: &str, text: &str| match text.trim() {
+        "" => Ok(None),
+        t => Timestamp::parse(t)
+            .map(Some)
+            .map_err(|e| format!("{name}: {e}")),
+    };
+    match (read("from", from), read("to", to)) {
+        (Ok(from), Ok(to)) if from.zip(to).is_some_and(|(f, t)| f >= t) => (
+            evidence::Window::default(),
+            Some("from must be before to; showing the whole history".into()),
+        ),
+        (Ok(from), Ok(to)) => (evidence::Window { from, to }, None),
+        (Err(e), _) | (_, Err(e)) => (
+            evidence::Window::default(),
+            Some(format!("{e}; showing the whole history")),
+        ),
+    }
+}
+
 /// How many differing periods the page lists before saying how many more there are.
 const DIFFERENCES_SHOWN: usize = 12;
 
@@ -52,6 +76,7 @@ pub fn section(
     history: &History,
     in_force: Option<&Shown<'_>>,
     proposal: Option<&Shown<'_>>,
+    window: (&evidence::Window, Option<String>),
 ) -> Value {
     let points = history.points();
     let chart = history_chart(&HistoryChart {
@@ -146,7 +171,7 @@ pub fn section(
             json!({
                 "count": all.len(),
                 "shown": all.iter().take(DIFFERENCES_SHOWN).map(|d| json!({
-                    "period": d.period_start.to_string()[..10].to_string(),
+                    "period": d.period_start.as_datetime().format("%Y-%m-%d").to_string(),
                     "value": number::format(d.value),
                     "first": d.first,
                     "second": d.second,
@@ -156,11 +181,21 @@ pub fn section(
         }
         _ => Value::Null,
     };
+    let date = |t: Option<crate::domain::Timestamp>| {
+        t.map(|t| t.as_datetime().format("%Y-%m-%d").to_string())
+            .unwrap_or_default()
+    };
     json!({
+        "window": {
+            "from": date(window.0.from),
+            "to": date(window.0.to),
+            "chosen": window.0.from.is_some() || window.0.to.is_some(),
+            "problem": window.1,
+        },
         "chart": chart,
         "count": history.points.len(),
-        "first": history.points.first().map(|o| o.period_start.to_string()[..10].to_string()),
-        "last": history.points.last().map(|o| o.period_start.to_string()[..10].to_string()),
+        "first": history.points.first().map(|o| date(Some(o.period_start))),
+        "last": history.points.last().map(|o| date(Some(o.period_start))),
         "summary": summary,
         "limits": limits,
         "backtests": backtests,

@@ -85,6 +85,9 @@ pub struct SavedQuery {
     saved: String,
     /// Rows of a history upload just stored.
     uploaded: String,
+    /// The evidence window.
+    from: String,
+    to: String,
 }
 
 pub async fn detail(
@@ -180,8 +183,9 @@ pub async fn detail(
             .collect::<Vec<_>>(),
     );
     ctx.insert("strip", &strip);
+    let (window, window_problem) = super::evidence::window(&query.from, &query.to);
     let evidence_history =
-        crate::ops::evidence::history(&state.store, metric.clone(), Default::default()).await?;
+        crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
     let shown = in_force.map(|v| super::evidence::Shown::version(&v.record));
     ctx.insert(
         "evidence",
@@ -192,6 +196,7 @@ pub async fn detail(
             &evidence_history,
             shown.as_ref(),
             None,
+            (&window, window_problem),
         ),
     );
     ctx.insert(

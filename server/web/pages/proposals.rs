@@ -444,6 +444,9 @@ pub async fn revise(
 #[serde(default)]
 pub struct DoneQuery {
     done: String,
+    /// The evidence window.
+    from: String,
+    to: String,
 }
 
 fn done_message(done: &str) -> Option<&'static str> {
@@ -507,7 +510,9 @@ async fn proposal_evidence(
     metric: &Metric,
     view: &ProposalView,
     previous: Option<&VersionRecord>,
+    (from, to): (&str, &str),
 ) -> Result<serde_json::Value, PageError> {
+    let (window, window_problem) = super::evidence::window(from, to);
     let latest = &view.latest_revision;
     let proposed = latest
         .direction
@@ -515,8 +520,7 @@ async fn proposal_evidence(
         .ok()
         .and_then(|d| CutSet::from_named(d, latest.cuts.iter().map(|(k, v)| (*k, *v))).ok());
     let shades = crate::domain::thresholds::Shades::new(i64::from(latest.shades)).ok();
-    let history =
-        crate::ops::evidence::history(&state.store, metric.clone(), Default::default()).await?;
+    let history = crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
     let in_force = previous.map(|v| super::evidence::Shown {
         caption: format!("Version {}", v.number),
         cuts: &v.content.cuts,
@@ -537,6 +541,7 @@ async fn proposal_evidence(
         &history,
         in_force.as_ref(),
         proposal.as_ref(),
+        (&window, window_problem),
     ))
 }
 
@@ -605,7 +610,14 @@ pub async fn show(
     let id = parse_id(&id)?;
     let (view, previous) = flow::get(&state.store, id).await?;
     let metric = metrics::get(&state.store, &view.metric).await?;
-    let evidence = proposal_evidence(&state, &metric, &view, previous.as_ref()).await?;
+    let evidence = proposal_evidence(
+        &state,
+        &metric,
+        &view,
+        previous.as_ref(),
+        (&query.from, &query.to),
+    )
+    .await?;
     Ok(proposal_page(
         &session,
         &metric,
@@ -624,11 +636,19 @@ pub async fn signoff_page(
     State(state): State<AppState>,
     PageSession(session): PageSession,
     Path(id): Path<String>,
+    PageQuery(query): PageQuery<DoneQuery>,
 ) -> Result<Response, PageError> {
     let id = parse_id(&id)?;
     let (view, previous) = flow::get(&state.store, id).await?;
     let metric = metrics::get(&state.store, &view.metric).await?;
-    let evidence = proposal_evidence(&state, &metric, &view, previous.as_ref()).await?;
+    let evidence = proposal_evidence(
+        &state,
+        &metric,
+        &view,
+        previous.as_ref(),
+        (&query.from, &query.to),
+    )
+    .await?;
     let mut ctx = base_context(
         Some(&session),
         &format!("Sign off proposal {} for {}", view.id, metric.name),
@@ -662,7 +682,8 @@ async fn step(
             }
             let (view, previous) = flow::get(&state.store, id).await?;
             let metric = metrics::get(&state.store, &view.metric).await?;
-            let evidence = proposal_evidence(state, &metric, &view, previous.as_ref()).await?;
+            let evidence =
+                proposal_evidence(state, &metric, &view, previous.as_ref(), ("", "")).await?;
             let mut response = proposal_page(
                 session,
                 &metric,
