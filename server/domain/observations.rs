@@ -454,3 +454,18 @@ fn finish(mut out: Vec<Observation>, found: Found) -> Result<Vec<Observation>, V
     out.sort_by_key(|o| o.period_start);
     Ok(out)
 }
+
+/// Observations as RFC 4180 CSV with a header row, CRLF line ends, oldest first: the format
+/// the upload reads, so a download can be uploaded again unchanged.
+pub fn to_csv(rows: &[Observation]) -> Vec<u8> {
+    let mut w = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::CRLF)
+        .from_writer(Vec::with_capacity(rows.len() * 40 + 20));
+    w.write_record(["period_start", "value"])
+        .expect("writing to memory");
+    for o in rows {
+        w.write_record([o.period_start.to_string(), super::number::format(o.value)])
+            .expect("writing to memory");
+    }
+    w.into_inner().expect("flushing to memory")
+}

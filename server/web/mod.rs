@@ -191,6 +191,7 @@ pub(crate) fn api_router() -> utoipa_axum::router::OpenApiRouter<AppState> {
         .routes(routes!(p::reject))
         .routes(routes!(p::inbox))
         .routes(routes!(e::upload, e::observations))
+        .routes(routes!(e::observations_csv))
         .routes(routes!(e::show))
         .routes(routes!(e::proposal))
         .routes(routes!(e::version))

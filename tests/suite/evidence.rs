@@ -954,3 +954,40 @@ fn json_bytes_are_read_item_by_item_with_the_same_answers() {
     assert!(from_json_bytes(br#"{"other": []}"#).is_err());
     assert!(from_json_bytes(br#"{"observations": []} trailing"#).is_err());
 }
+
+on_both_backends! {
+    async fn the_stored_history_downloads_as_csv_that_uploads_again_unchanged(app) {
+        let team = Team::new(app).await;
+        let file = "period_start,value\n2026-01-12,71.5\n2026-01-05T06:00:00+06:00,70\n2026-01-19,-0.125\n";
+        let (status, _) = upload(&team, "tomas", "", "text/csv", file.into()).await;
+        assert_eq!(status, 200);
+        let r = team.app.http.get(team.app.url(&format!("/api/v1/metrics/{METRIC}/observations.csv")))
+            .bearer_auth(team.token_of("wren")).send().await.unwrap();
+        assert_eq!(r.status(), 200);
+        assert!(r.headers()["content-type"].to_str().unwrap().starts_with("text/csv"));
+        assert!(r.headers()["content-disposition"].to_str().unwrap().contains("attachment"));
+        let csv = r.text().await.unwrap();
+        // RFC 4180: CRLF line ends; in time order, times in UTC.
+        assert_eq!(csv, "period_start,value\r\n2026-01-05T00:00:00.000000Z,70\r\n2026-01-12T00:00:00.000000Z,71.5\r\n2026-01-19T00:00:00.000000Z,-0.125\r\n");
+        // Python's csv module (the reference reader) reads the same three rows.
+        let python = Command::new("python3")
+            .args(["-c", "import csv, io, sys, json\nprint(json.dumps(list(csv.reader(io.StringIO(sys.stdin.read(), newline='')))))"])
+            .stdin(Stdio::piped()).stdout(Stdio::piped()).spawn();
+        match python {
+            Ok(mut child) => {
+                child.stdin.take().unwrap().write_all(csv.as_bytes()).unwrap();
+                let rows: Vec<Vec<String>> = serde_json::from_slice(&child.wait_with_output().unwrap().stdout).unwrap();
+                assert_eq!(rows.len(), 4);
+                assert_eq!(rows[3], ["2026-01-19T00:00:00.000000Z", "-0.125"]);
+            }
+            Err(_) => missing_prerequisite("python3 (reference CSV reader)"),
+        }
+        // Uploading the download replaces the history with itself.
+        let (status, body) = upload(&team, "tomas", "?mode=replace", "text/csv", csv.clone()).await;
+        assert_eq!(status, 200, "{body}");
+        assert_eq!(body["total"], 3);
+        let again = team.app.http.get(team.app.url(&format!("/api/v1/metrics/{METRIC}/observations.csv?from=2026-01-10")))
+            .bearer_auth(team.token_of("wren")).send().await.unwrap().text().await.unwrap();
+        assert_eq!(again.lines().count(), 3, "a window: {again}");
+    }
+}

@@ -151,6 +151,35 @@ pub async fn observations(
     }))
 }
 
+/// `GET /api/v1/metrics/{key}/observations.csv`: the stored history as RFC 4180 CSV, in the
+/// format the upload reads.
+#[utoipa::path(get, path = "/v1/metrics/{key}/observations.csv", operation_id = "downloadObservations", tag = "evidence",
+    params(("key" = String, Path, description = "Metric key"), WindowQuery),
+    responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+pub async fn observations_csv(
+    State(state): State<AppState>,
+    _caller: ApiCaller,
+    KeyPath(key): KeyPath,
+    ApiQuery(query): ApiQuery<WindowQuery>,
+) -> Result<Response, ApiError> {
+    let rows = evidence::list(&state.store, key.as_str(), query.window()?).await?;
+    let body = tokio::task::spawn_blocking(move || crate::domain::observations::to_csv(&rows))
+        .await
+        .map_err(|_| ApiError::internal())?;
+    let disposition = format!("attachment; filename=\"{key}-history.csv\"");
+    Ok((
+        [
+            (
+                header::CONTENT_TYPE,
+                "text/csv; charset=utf-8; header=present".to_string(),
+            ),
+            (header::CONTENT_DISPOSITION, disposition),
+        ],
+        body,
+    )
+        .into_response())
+}
+
 /// `GET /api/v1/metrics/{key}/evidence`: statistics, natural process limits and the version
 /// in force's backtest over a window.
 #[utoipa::path(get, path = "/v1/metrics/{key}/evidence", operation_id = "getEvidence", tag = "evidence",
