@@ -19,21 +19,51 @@ use crate::web::error::{ApiError, PageError};
 use crate::web::history_chart::{Bands, HistoryChart, LimitLines, history_chart};
 
 /// A cut set the section shows, with the words for it.
-pub struct Shown<'a> {
+pub struct Shown {
     /// "In force: version 3", "Proposed: revision 2".
     pub caption: String,
-    pub cuts: &'a CutSet,
+    pub cuts: CutSet,
     pub shades: Shades,
 }
 
-impl<'a> Shown<'a> {
-    pub fn version(v: &'a VersionRecord) -> Shown<'a> {
+impl Shown {
+    pub fn version(v: &VersionRecord) -> Shown {
         Shown {
             caption: format!("In force: version {}", v.number),
-            cuts: &v.content.cuts,
+            cuts: v.content.cuts,
             shades: v.content.shades,
         }
     }
+}
+
+/// What [`section`] is drawn from, owned, so that the drawing and the backtests of a long
+/// history run off the serving thread (one busy page would otherwise hold up every other
+/// connection of its thread).
+pub struct SectionInput {
+    pub metric_name: String,
+    pub unit: String,
+    pub history: History,
+    pub in_force: Option<Shown>,
+    pub proposal: Option<Shown>,
+    pub window: evidence::Window,
+    pub window_problem: Option<String>,
+}
+
+/// [`section`] on the blocking pool.
+pub async fn section_off_thread(input: SectionInput) -> Result<Value, PageError> {
+    tokio::task::spawn_blocking(move || {
+        section(
+            "evidence",
+            &input.metric_name,
+            &input.unit,
+            &input.history,
+            input.in_force.as_ref(),
+            input.proposal.as_ref(),
+            (&input.window, input.window_problem),
+        )
+    })
+    .await
+    .map_err(|_| PageError(ApiError::internal()))
 }
 
 fn num(x: f64) -> String {
@@ -74,8 +104,8 @@ pub fn section(
     metric_name: &str,
     unit: &str,
     history: &History,
-    in_force: Option<&Shown<'_>>,
-    proposal: Option<&Shown<'_>>,
+    in_force: Option<&Shown>,
+    proposal: Option<&Shown>,
     window: (&evidence::Window, Option<String>),
 ) -> Value {
     let points = history.points();
@@ -86,11 +116,11 @@ pub fn section(
         points: &points,
         in_force: in_force.map(|s| Bands {
             caption: &s.caption,
-            cuts: s.cuts,
+            cuts: &s.cuts,
         }),
         proposal: proposal.map(|s| Bands {
             caption: &s.caption,
-            cuts: s.cuts,
+            cuts: &s.cuts,
         }),
         limits: history.limits.map(|l| LimitLines {
             mean: l.mean,
@@ -120,54 +150,40 @@ pub fn section(
         })
     });
     let judged = proposal.or(in_force);
+    let values = history.values();
+    let mut warnings: Vec<String> = Vec::new();
     let backtests: Vec<Value> = [in_force, proposal]
         .into_iter()
         .flatten()
         .map(|s| {
-            let view = evidence::backtest_view(
-                evidence::Subject {
-                    kind: "",
-                    number: 0,
-                    proposal: None,
-                    direction: s.cuts.direction().as_str(),
-                    cuts: Value::Null,
-                    shades: s.shades.get(),
-                },
-                s.cuts,
-                s.shades,
-                history,
-                DEFAULT_CRITICAL_SHARE,
-            );
+            let bt = crate::engine::backtest::backtest(&s.cuts, s.shades, &values);
+            if judged.is_some_and(|j| std::ptr::eq(j, s)) {
+                warnings = crate::engine::warnings::warnings(
+                    &s.cuts,
+                    &bt,
+                    history.limits.as_ref(),
+                    DEFAULT_CRITICAL_SHARE,
+                )
+                .into_iter()
+                .map(|w| w.message)
+                .collect();
+            }
             let zones: Vec<Value> = crate::engine::backtest::zones_of(s.cuts.direction())
                 .iter()
                 .map(|z| {
                     json!({
                         "name": z.as_str(),
-                        "count": view.result.zones[z.as_str()],
-                        "share": percent(view.result.zone_shares[z.as_str()]),
+                        "count": bt.zones[z.as_str()],
+                        "share": percent(bt.zone_shares[z.as_str()]),
                     })
                 })
                 .collect();
-            json!({"caption": s.caption, "zones": zones, "changes": view.result.changes})
+            json!({"caption": s.caption, "zones": zones, "changes": bt.changes})
         })
         .collect();
-    let warnings: Vec<String> = judged
-        .map(|s| {
-            let bt = crate::engine::backtest::backtest(s.cuts, s.shades, &history.values());
-            crate::engine::warnings::warnings(
-                s.cuts,
-                &bt,
-                history.limits.as_ref(),
-                DEFAULT_CRITICAL_SHARE,
-            )
-            .into_iter()
-            .map(|w| w.message)
-            .collect()
-        })
-        .unwrap_or_default();
     let differences = match (in_force, proposal) {
         (Some(a), Some(b)) => {
-            let all = evidence::differences((a.cuts, a.shades), (b.cuts, b.shades), history);
+            let all = evidence::differences((&a.cuts, a.shades), (&b.cuts, b.shades), history);
             json!({
                 "count": all.len(),
                 "shown": all.iter().take(DIFFERENCES_SHOWN).map(|d| json!({

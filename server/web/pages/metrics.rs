@@ -187,18 +187,17 @@ pub async fn detail(
     let evidence_history =
         crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
     let shown = in_force.map(|v| super::evidence::Shown::version(&v.record));
-    ctx.insert(
-        "evidence",
-        &super::evidence::section(
-            "evidence",
-            &metric.name,
-            unit,
-            &evidence_history,
-            shown.as_ref(),
-            None,
-            (&window, window_problem),
-        ),
-    );
+    let evidence = super::evidence::section_off_thread(super::evidence::SectionInput {
+        metric_name: metric.name.clone(),
+        unit: unit.to_string(),
+        history: evidence_history,
+        in_force: shown,
+        proposal: None,
+        window,
+        window_problem,
+    })
+    .await?;
+    ctx.insert("evidence", &evidence);
     ctx.insert(
         "can_upload",
         &(session.user.roles.has(Role::Admin) || metric.is_owner(&session.user.username)),

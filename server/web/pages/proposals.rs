@@ -523,26 +523,27 @@ async fn proposal_evidence(
     let history = crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
     let in_force = previous.map(|v| super::evidence::Shown {
         caption: format!("Version {}", v.number),
-        cuts: &v.content.cuts,
+        cuts: v.content.cuts,
         shades: v.content.shades,
     });
     let proposal = match (&proposed, shades) {
         (Some(cuts), Some(shades)) => Some(super::evidence::Shown {
             caption: format!("revision {} of proposal {}", latest.number, view.id),
-            cuts,
+            cuts: *cuts,
             shades,
         }),
         _ => None,
     };
-    Ok(super::evidence::section(
-        "evidence",
-        &metric.name,
-        &latest.unit,
-        &history,
-        in_force.as_ref(),
-        proposal.as_ref(),
-        (&window, window_problem),
-    ))
+    super::evidence::section_off_thread(super::evidence::SectionInput {
+        metric_name: metric.name.clone(),
+        unit: latest.unit.clone(),
+        history,
+        in_force,
+        proposal,
+        window,
+        window_problem,
+    })
+    .await
 }
 
 #[allow(clippy::too_many_arguments)]
