@@ -29,6 +29,8 @@ use crate::engine::classify;
 #[derive(Clone, Copy, Debug)]
 pub struct Bands<'a> {
     pub caption: &'a str,
+    /// The strip's heading, a word or two ("in force", "scheduled", "proposed").
+    pub short: &'a str,
     pub cuts: &'a CutSet,
 }
 
@@ -726,10 +728,10 @@ fn draw_series(
 }
 
 /// The cut sets present with their strip captions, in the order the strips are drawn.
-fn band_sets<'c>(chart: &'c HistoryChart<'_>) -> Vec<(&'static str, &'c Bands<'c>)> {
-    [("in force", &chart.in_force), ("proposed", &chart.proposal)]
+fn band_sets<'c>(chart: &'c HistoryChart<'_>) -> Vec<(&'c str, &'c Bands<'c>)> {
+    [&chart.in_force, &chart.proposal]
         .into_iter()
-        .filter_map(|(short, bands)| Some((short, bands.as_ref()?)))
+        .filter_map(|bands| bands.as_ref().map(|b| (b.short, b)))
         .collect()
 }
 

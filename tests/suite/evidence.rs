@@ -798,6 +798,7 @@ on_both_backends! {
         assert!(html.contains("would fire on routine variation about"), "the intervene warning");
         assert!(html.contains("was never reached"), "the stretch warning");
         assert!(html.contains("Periods whose zone would change (6)"), "49.6 and 49.9 three times, {html}");
+        assert!(html.contains(">In force</th><th scope=\"col\">Proposed</th>"), "the compared sets named");
 
         // The signatory's sign-off page shows the same evidence beside the form.
         let signatory = team.app.signed_in("odile").await;

@@ -69,10 +69,12 @@ fn chart<'a>(
         points,
         in_force: in_force.map(|cuts| Bands {
             caption: "In force: version 3",
+            short: "in force",
             cuts,
         }),
         proposal: proposal.map(|cuts| Bands {
             caption: "Proposed: revision 2",
+            short: "proposed",
             cuts,
         }),
         limits,
@@ -397,10 +399,12 @@ fn text_from_outside_is_escaped() {
         points: &points,
         in_force: Some(Bands {
             caption: "Q&A <draft>",
+            short: "in force",
             cuts: in_force,
         }),
         proposal: Some(Bands {
             caption: "bell \u{7}",
+            short: "proposed",
             cuts: proposal,
         }),
         limits: None,

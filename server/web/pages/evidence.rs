@@ -22,6 +22,8 @@ use crate::web::history_chart::{Bands, HistoryChart, LimitLines, history_chart};
 pub struct Shown {
     /// "In force: version 3", "Proposed: revision 2".
     pub caption: String,
+    /// The chart strip's heading: "in force", "scheduled", "proposed".
+    pub short: &'static str,
     pub cuts: CutSet,
     pub shades: Shades,
 }
@@ -30,6 +32,7 @@ impl Shown {
     pub fn version(v: &VersionRecord) -> Shown {
         Shown {
             caption: format!("In force: version {}", v.number),
+            short: "in force",
             cuts: v.content.cuts,
             shades: v.content.shades,
         }
@@ -116,10 +119,12 @@ pub fn section(
         points: &points,
         in_force: in_force.map(|s| Bands {
             caption: &s.caption,
+            short: s.short,
             cuts: &s.cuts,
         }),
         proposal: proposal.map(|s| Bands {
             caption: &s.caption,
+            short: s.short,
             cuts: &s.cuts,
         }),
         limits: history.limits.map(|l| LimitLines {
@@ -217,6 +222,10 @@ pub fn section(
         "backtests": backtests,
         "warnings": warnings,
         "judged": judged.map(|s| s.caption.clone()),
+        "labels": {
+            "first": in_force.map_or("in force", |s| s.short),
+            "second": proposal.map_or("proposed", |s| s.short),
+        },
         "differences": differences,
     })
 }

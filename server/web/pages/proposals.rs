@@ -521,14 +521,25 @@ async fn proposal_evidence(
         .and_then(|d| CutSet::from_named(d, latest.cuts.iter().map(|(k, v)| (*k, *v))).ok());
     let shades = crate::domain::thresholds::Shades::new(i64::from(latest.shades)).ok();
     let history = crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
+    let now = state.store.now();
     let in_force = previous.map(|v| super::evidence::Shown {
         caption: format!("Version {}", v.number),
+        // The version compared with: the latest approved one, which is in force unless its
+        // effective time is still ahead; for an approved proposal, the one before its own.
+        short: if v.effective_from > now {
+            "scheduled"
+        } else if view.state == crate::domain::proposal::ProposalState::Approved {
+            "previous"
+        } else {
+            "in force"
+        },
         cuts: v.content.cuts,
         shades: v.content.shades,
     });
     let proposal = match (&proposed, shades) {
         (Some(cuts), Some(shades)) => Some(super::evidence::Shown {
             caption: format!("revision {} of proposal {}", latest.number, view.id),
+            short: "proposed",
             cuts: *cuts,
             shades,
         }),
