@@ -116,10 +116,27 @@ pub async fn store_rows(
     sha256: &str,
     progress: impl FnMut(u64),
 ) -> OpResult<UploadReport> {
+    // The rows go in outside the write lock first; the move under it is one statement.
+    let staged = rows::stage(store, parsed, progress).await?;
+    let result = store_staged(store, &by, key, mode, &staged, sha256).await;
+    if let Err(e) = rows::unstage(store, &staged).await {
+        tracing::warn!(error = %e, "staged rows stay until the next upload clears them");
+    }
+    result
+}
+
+async fn store_staged(
+    store: &Store,
+    by: &Uploader<'_>,
+    key: &str,
+    mode: Mode,
+    staged: &rows::Staged,
+    sha256: &str,
+) -> OpResult<UploadReport> {
     let mut w = store.begin_write().await?;
     let metric = metrics::get_for_update(&mut w, key).await?;
-    may_upload(&by, &metric)?;
-    let written: Written = rows::write(&mut w, metric.id, mode, parsed, progress).await?;
+    may_upload(by, &metric)?;
+    let written: Written = rows::write_staged(&mut w, metric.id, mode, staged).await?;
     let actor = match by {
         Uploader::User(u) => Actor::User(u.username.clone()),
         Uploader::Cli => Actor::Cli,
@@ -131,7 +148,7 @@ pub async fn store_rows(
             &metric.subject(),
             serde_json::json!({
                 "mode": mode.as_str(),
-                "rows": parsed.len(),
+                "rows": staged.rows,
                 "sha256": sha256,
                 "added": written.added,
                 "replaced": written.replaced,
@@ -144,7 +161,7 @@ pub async fn store_rows(
     Ok(UploadReport {
         metric: metric.key.to_string(),
         mode,
-        rows: parsed.len() as u64,
+        rows: staged.rows,
         added: written.added,
         replaced: written.replaced,
         removed: written.removed,

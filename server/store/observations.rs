@@ -53,13 +53,81 @@ pub async fn count(conn: &mut AnyConnection, metric_id: i64) -> StoreResult<u64>
     Ok(n as u64)
 }
 
-/// Writes `rows` (distinct periods) in `mode`, telling `progress` how many are written.
-pub async fn write(
+/// Rows per staging transaction: few enough commits for SQLite's fsyncs, short enough that
+/// other writers get their turn in between.
+const CHUNKS_PER_TRANSACTION: usize = 20;
+
+/// An upload's rows, staged and waiting to be moved in by [`write_staged`].
+#[derive(Debug)]
+pub struct Staged {
+    upload: String,
+    /// How many rows were staged.
+    pub rows: u64,
+}
+
+/// Writes `rows` (distinct periods) to the staging table, outside the write lock, telling
+/// `progress` how many are written. Also forgets stagings older than a day (uploads that died
+/// half way). Call [`unstage`] afterwards, whatever happened.
+pub async fn stage(
+    store: &super::Store,
+    rows: &[Observation],
+    mut progress: impl FnMut(u64),
+) -> StoreResult<Staged> {
+    let upload = crate::auth::secret::random_token("upload");
+    let now = store.now();
+    sqlx::query("DELETE FROM observation_staging WHERE created_at < $1")
+        .bind(now.plus_seconds(-86_400))
+        .execute(store.pool())
+        .await?;
+    let mut done = 0u64;
+    for group in rows.chunks(CHUNK * CHUNKS_PER_TRANSACTION) {
+        let mut tx = store.pool().begin().await?;
+        for chunk in group.chunks(CHUNK) {
+            let mut sql = String::from(
+                "INSERT INTO observation_staging (upload, period_start, value, created_at) VALUES ",
+            );
+            for i in 0..chunk.len() {
+                if i > 0 {
+                    sql.push(',');
+                }
+                let p = 2 * i + 2;
+                sql.push_str(&format!("($1, ${}, ${}, $2)", p + 1, p + 2));
+            }
+            // Built from placeholders only; every value is bound.
+            let mut q = sqlx::query(sqlx::AssertSqlSafe(sql))
+                .bind(&upload)
+                .bind(now);
+            for o in chunk {
+                q = q.bind(o.period_start).bind(o.value);
+            }
+            q.execute(&mut *tx).await?;
+            done += chunk.len() as u64;
+            progress(done);
+        }
+        tx.commit().await?;
+    }
+    Ok(Staged {
+        upload,
+        rows: rows.len() as u64,
+    })
+}
+
+/// Removes an upload's staged rows.
+pub async fn unstage(store: &super::Store, staged: &Staged) -> StoreResult<()> {
+    sqlx::query("DELETE FROM observation_staging WHERE upload = $1")
+        .bind(&staged.upload)
+        .execute(store.pool())
+        .await?;
+    Ok(())
+}
+
+/// Moves staged rows into the metric's history in `mode`, inside the write transaction: one
+/// statement, so the write lock is held for the move only.
+pub async fn write_staged(
     w: &mut WriteTx,
     metric_id: i64,
     mode: Mode,
-    rows: &[Observation],
-    mut progress: impl FnMut(u64),
+    staged: &Staged,
 ) -> StoreResult<Written> {
     let before = count(w.conn(), metric_id).await?;
     if mode == Mode::Replace {
@@ -68,29 +136,17 @@ pub async fn write(
             .execute(w.conn())
             .await?;
     }
-    let mut done = 0u64;
-    for chunk in rows.chunks(CHUNK) {
-        let mut sql =
-            String::from("INSERT INTO observations (metric_id, period_start, value) VALUES ");
-        for i in 0..chunk.len() {
-            if i > 0 {
-                sql.push(',');
-            }
-            let p = 3 * i;
-            sql.push_str(&format!("(${}, ${}, ${})", p + 1, p + 2, p + 3));
-        }
-        sql.push_str(" ON CONFLICT (metric_id, period_start) DO UPDATE SET value = excluded.value");
-        // Built from placeholders only; every value is bound.
-        let mut q = sqlx::query(sqlx::AssertSqlSafe(sql));
-        for o in chunk {
-            q = q.bind(metric_id).bind(o.period_start).bind(o.value);
-        }
-        q.execute(w.conn()).await?;
-        done += chunk.len() as u64;
-        progress(done);
-    }
+    sqlx::query(
+        "INSERT INTO observations (metric_id, period_start, value) \
+         SELECT $1, period_start, value FROM observation_staging WHERE upload = $2 \
+         ON CONFLICT (metric_id, period_start) DO UPDATE SET value = excluded.value",
+    )
+    .bind(metric_id)
+    .bind(&staged.upload)
+    .execute(w.conn())
+    .await?;
     let total = count(w.conn(), metric_id).await?;
-    let uploaded = rows.len() as u64;
+    let uploaded = staged.rows;
     Ok(match mode {
         Mode::Merge => Written {
             added: total - before,
