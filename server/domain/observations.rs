@@ -175,9 +175,7 @@ pub fn from_csv(
         .flexible(true)
         .trim(csv::Trim::All)
         .from_reader(bytes);
-    let mut out = Vec::new();
-    let mut problems = Found::default();
-    let mut periods = Periods::default();
+    let mut kept = Kept::default();
     let mut record = csv::ByteRecord::new();
     let mut first = true;
     let mut records = 0u64;
@@ -189,7 +187,8 @@ pub fn from_csv(
             Ok(true) => {}
             Err(e) => {
                 let at = e.position().map_or(line, |p| lines.at(p.byte()));
-                problems.push(RowProblem::line(at, format!("not CSV: {e}")));
+                kept.problems
+                    .push(RowProblem::line(at, format!("not CSV: {e}")));
                 // An unterminated quote swallows the rest; nothing after it can be read.
                 if matches!(e.kind(), csv::ErrorKind::Io(_)) {
                     break;
@@ -209,7 +208,7 @@ pub fn from_csv(
         {
             Ok(f) => f,
             Err(_) => {
-                problems.push(RowProblem::line(line, "not UTF-8 text"));
+                kept.problems.push(RowProblem::line(line, "not UTF-8 text"));
                 continue;
             }
         };
@@ -219,7 +218,7 @@ pub fn from_csv(
         }
         let is_first = std::mem::take(&mut first);
         if fields.len() != 2 {
-            problems.push(RowProblem::line(
+            kept.problems.push(RowProblem::line(
                 line,
                 format!(
                     "expected 2 fields (period start, value), found {}",
@@ -232,23 +231,10 @@ pub fn from_csv(
         if is_first && !fields[0].bytes().any(|b| b.is_ascii_digit()) && value(fields[1]).is_err() {
             continue;
         }
-        let (p, v) = (period(fields[0]), value(fields[1]));
-        match (p, v) {
-            (Ok(at), Ok(v)) => match periods.check(at, line, "line") {
-                Ok(()) => out.push(Observation {
-                    period_start: at,
-                    value: v,
-                }),
-                Err(reason) => problems.push(RowProblem::line(line, reason)),
-            },
-            (p, v) => {
-                let reasons: Vec<String> = [p.err(), v.err()].into_iter().flatten().collect();
-                problems.push(RowProblem::line(line, reasons.join("; ")));
-            }
-        }
+        kept.take(Place::Line(line), period(fields[0]), value(fields[1]));
     }
     progress(bytes.len() as u64);
-    finish(out, problems)
+    finish(kept)
 }
 
 /// Reads a JSON upload: `{"observations": [{"period_start": "2026-03-01", "value": 71.5}, ...]}`.
@@ -260,7 +246,7 @@ pub fn from_json(body: &serde_json::Value) -> Result<Vec<Observation>, Vec<RowPr
     for item in items {
         reader.item(item);
     }
-    finish(reader.out, reader.problems)
+    finish(reader.kept)
 }
 
 /// Reads a JSON upload from its bytes, one item at a time, so that memory grows with the
@@ -273,7 +259,7 @@ pub fn from_json_bytes(bytes: &[u8]) -> Result<Vec<Observation>, Vec<RowProblem>
         .deserialize(&mut de)
         .and_then(|found| de.end().map(|()| found));
     match found {
-        Ok(true) => finish(reader.out, reader.problems),
+        Ok(true) => finish(reader.kept),
         Ok(false) => Err(no_observations_array()),
         Err(e) => Err(vec![RowProblem {
             line: Some(e.line() as u64),
@@ -352,9 +338,7 @@ impl<'de> serde::de::Visitor<'de> for Items<'_> {
 /// The observations and problems of a JSON upload, item by item.
 #[derive(Default)]
 struct JsonItems {
-    out: Vec<Observation>,
-    problems: Found,
-    periods: Periods,
+    kept: Kept,
     seen: u64,
 }
 
@@ -363,7 +347,7 @@ impl JsonItems {
         self.seen += 1;
         let n = self.seen;
         let Some(object) = item.as_object() else {
-            self.problems.push(RowProblem::item(
+            self.kept.problems.push(RowProblem::item(
                 n,
                 "expected an object with period_start and value",
             ));
@@ -373,7 +357,7 @@ impl JsonItems {
             .keys()
             .find(|k| *k != "period_start" && *k != "value")
         {
-            self.problems.push(RowProblem::item(
+            self.kept.problems.push(RowProblem::item(
                 n,
                 format!("unknown field {}", echo(other)),
             ));
@@ -392,17 +376,55 @@ impl JsonItems {
             None | Some(serde_json::Value::Null) => Err("missing value".into()),
             Some(_) => Err("value must be a number".into()),
         };
-        match (p, v) {
-            (Ok(at), Ok(v)) => match self.periods.check(at, n, "item") {
-                Ok(()) => self.out.push(Observation {
-                    period_start: at,
-                    value: v,
-                }),
-                Err(reason) => self.problems.push(RowProblem::item(n, reason)),
-            },
+        self.kept.take(Place::Item(n), p, v);
+    }
+}
+
+/// Where a row came from: a CSV line or a JSON item, counted from 1.
+#[derive(Clone, Copy)]
+enum Place {
+    Line(u64),
+    Item(u64),
+}
+
+impl Place {
+    fn problem(self, reason: impl Into<String>) -> RowProblem {
+        match self {
+            Place::Line(n) => RowProblem::line(n, reason),
+            Place::Item(n) => RowProblem::item(n, reason),
+        }
+    }
+}
+
+/// The rows of an upload read so far, and its problems.
+#[derive(Default)]
+struct Kept {
+    out: Vec<Observation>,
+    problems: Found,
+    periods: Periods,
+}
+
+impl Kept {
+    /// Keeps a row whose period and value both read and whose period is new; otherwise
+    /// notes every reason it does not.
+    fn take(&mut self, at: Place, period: Result<Timestamp, String>, value: Result<f64, String>) {
+        match (period, value) {
+            (Ok(start), Ok(v)) => {
+                let (n, what) = match at {
+                    Place::Line(n) => (n, "line"),
+                    Place::Item(n) => (n, "item"),
+                };
+                match self.periods.check(start, n, what) {
+                    Ok(()) => self.out.push(Observation {
+                        period_start: start,
+                        value: v,
+                    }),
+                    Err(reason) => self.problems.push(at.problem(reason)),
+                }
+            }
             (p, v) => {
                 let reasons: Vec<String> = [p.err(), v.err()].into_iter().flatten().collect();
-                self.problems.push(RowProblem::item(n, reasons.join("; ")));
+                self.problems.push(at.problem(reasons.join("; ")));
             }
         }
     }
@@ -429,7 +451,12 @@ impl Found {
     }
 }
 
-fn finish(mut out: Vec<Observation>, found: Found) -> Result<Vec<Observation>, Vec<RowProblem>> {
+fn finish(kept: Kept) -> Result<Vec<Observation>, Vec<RowProblem>> {
+    let Kept {
+        mut out,
+        problems: found,
+        ..
+    } = kept;
     let mut problems = found.listed;
     if found.more > 0 {
         problems.push(RowProblem {

@@ -383,7 +383,7 @@ pub async fn evidence(
     key: &str,
     window: Window,
     critical_share: f64,
-) -> OpResult<(Evidence, History, Option<VersionRecord>)> {
+) -> OpResult<Evidence> {
     let metric = metrics::get(store, key).await?;
     let now = store.now();
     let in_force = {
@@ -417,7 +417,7 @@ pub async fn evidence(
         limits_dependable: history.points.len() >= LIMITS_MIN_POINTS,
         backtest,
     };
-    Ok((evidence, history, in_force))
+    Ok(evidence)
 }
 
 /// A proposal's backtest beside the version it would replace.
@@ -445,13 +445,14 @@ pub async fn proposal_backtest(
     revision: Option<i64>,
     window: Window,
     critical_share: f64,
-) -> OpResult<(ProposalBacktest, History)> {
-    let (view, previous) = super::proposals::get(store, id).await?;
-    let bundle = {
+) -> OpResult<ProposalBacktest> {
+    let (bundle, previous) = {
         let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
-        proposals::bundle(&mut conn, id)
+        let bundle = proposals::bundle(&mut conn, id)
             .await?
-            .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?
+            .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?;
+        let previous = super::proposals::compared_version(&mut conn, &bundle.proposal).await?;
+        (bundle, previous)
     };
     let latest = match revision {
         None => bundle.latest(),
@@ -461,7 +462,7 @@ pub async fn proposal_backtest(
             .find(|r| r.number == n)
             .ok_or_else(|| StoreError::NotFound(format!("proposal {id} has no revision {n}")))?,
     };
-    let metric = metrics::get(store, &view.metric).await?;
+    let metric = metrics::get(store, &bundle.proposal.metric_key).await?;
     let history = history(store, metric, window).await?;
     let content = &latest.content;
     let tested = Tested {
@@ -482,18 +483,15 @@ pub async fn proposal_backtest(
         previous.as_ref().map(Tested::version),
         critical_share,
     );
-    Ok((
-        ProposalBacktest {
-            proposal: id,
-            metric: history.metric.key.to_string(),
-            count: history.points.len(),
-            limits: history.limits,
-            backtest,
-            compared_with,
-            differences,
-        },
-        history,
-    ))
+    Ok(ProposalBacktest {
+        proposal: id,
+        metric: history.metric.key.to_string(),
+        count: history.points.len(),
+        limits: history.limits,
+        backtest,
+        compared_with,
+        differences,
+    })
 }
 
 /// A version's backtest, optionally beside another version.

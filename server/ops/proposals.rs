@@ -836,15 +836,23 @@ pub async fn get(store: &Store, id: i64) -> OpResult<(ProposalView, Option<Versi
         .await?
         .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?;
     let required = policy::reviewers_required(&mut conn).await?;
-    // An approved proposal is compared with the version before its own.
-    let previous = match bundle.proposal.version_number {
-        Some(n) => versions::list(&mut conn, bundle.proposal.metric_id)
+    let previous = compared_version(&mut conn, &bundle.proposal).await?;
+    Ok((view(&bundle, required, previous.as_ref()), previous))
+}
+
+/// The version a proposal is compared with: the latest approved one, or for an approved
+/// proposal the version before its own.
+pub async fn compared_version(
+    conn: &mut sqlx::AnyConnection,
+    proposal: &records::ProposalRecord,
+) -> OpResult<Option<VersionRecord>> {
+    Ok(match proposal.version_number {
+        Some(n) => versions::list(conn, proposal.metric_id)
             .await?
             .into_iter()
             .rfind(|v| v.number < n),
-        None => versions::latest(&mut conn, bundle.proposal.metric_id).await?,
-    };
-    Ok((view(&bundle, required, previous.as_ref()), previous))
+        None => versions::latest(conn, proposal.metric_id).await?,
+    })
 }
 
 fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>) -> ProposalView {

@@ -35,12 +35,17 @@ pub struct WindowQuery {
     critical_share: Option<f64>,
 }
 
+/// The window named by `from` and `to` query parameters.
+fn window_of(from: &str, to: &str) -> Result<Window, ApiError> {
+    Ok(Window {
+        from: time_param("from", from)?,
+        to: time_param("to", to)?,
+    })
+}
+
 impl WindowQuery {
     pub fn window(&self) -> Result<Window, ApiError> {
-        Ok(Window {
-            from: time_param("from", &self.from)?,
-            to: time_param("to", &self.to)?,
-        })
+        window_of(&self.from, &self.to)
     }
 
     pub fn critical_share(&self) -> Result<f64, ApiError> {
@@ -191,7 +196,7 @@ pub async fn show(
     KeyPath(key): KeyPath,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<Evidence>, ApiError> {
-    let (evidence, _, _) = evidence::evidence(
+    let evidence = evidence::evidence(
         &state.store,
         key.as_str(),
         query.window()?,
@@ -226,12 +231,9 @@ pub async fn proposal(
     ProposalId(id): ProposalId,
     ApiQuery(query): ApiQuery<ProposalQuery>,
 ) -> Result<Json<ProposalBacktest>, ApiError> {
-    let window = Window {
-        from: time_param("from", &query.from)?,
-        to: time_param("to", &query.to)?,
-    };
+    let window = window_of(&query.from, &query.to)?;
     let share = evidence::critical_share(query.critical_share)?;
-    let (backtest, _) =
+    let backtest =
         evidence::proposal_backtest(&state.store, id, query.revision, window, share).await?;
     Ok(Json(backtest))
 }
@@ -279,10 +281,7 @@ pub async fn version(
     VersionPath(key, number): VersionPath,
     ApiQuery(query): ApiQuery<VersionQuery>,
 ) -> Result<Response, ApiError> {
-    let window = Window {
-        from: time_param("from", &query.from)?,
-        to: time_param("to", &query.to)?,
-    };
+    let window = window_of(&query.from, &query.to)?;
     let share = evidence::critical_share(query.critical_share)?;
     let backtest = evidence::version_backtest(
         &state.store,

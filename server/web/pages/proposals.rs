@@ -557,6 +557,26 @@ async fn proposal_evidence(
     .await
 }
 
+/// A proposal with the version it is compared with, its metric, and its evidence section.
+async fn load_with_evidence(
+    state: &AppState,
+    id: i64,
+    window: (&str, &str),
+) -> Result<
+    (
+        ProposalView,
+        Option<VersionRecord>,
+        Metric,
+        serde_json::Value,
+    ),
+    PageError,
+> {
+    let (view, previous) = flow::get(&state.store, id).await?;
+    let metric = metrics::get(&state.store, &view.metric).await?;
+    let evidence = proposal_evidence(state, &metric, &view, previous.as_ref(), window).await?;
+    Ok((view, previous, metric, evidence))
+}
+
 #[allow(clippy::too_many_arguments)]
 fn proposal_page(
     session: &Session,
@@ -620,16 +640,8 @@ pub async fn show(
     PageQuery(query): PageQuery<DoneQuery>,
 ) -> Result<Response, PageError> {
     let id = parse_id(&id)?;
-    let (view, previous) = flow::get(&state.store, id).await?;
-    let metric = metrics::get(&state.store, &view.metric).await?;
-    let evidence = proposal_evidence(
-        &state,
-        &metric,
-        &view,
-        previous.as_ref(),
-        (&query.from, &query.to),
-    )
-    .await?;
+    let (view, previous, metric, evidence) =
+        load_with_evidence(&state, id, (&query.from, &query.to)).await?;
     Ok(proposal_page(
         &session,
         &metric,
@@ -651,16 +663,8 @@ pub async fn signoff_page(
     PageQuery(query): PageQuery<DoneQuery>,
 ) -> Result<Response, PageError> {
     let id = parse_id(&id)?;
-    let (view, previous) = flow::get(&state.store, id).await?;
-    let metric = metrics::get(&state.store, &view.metric).await?;
-    let evidence = proposal_evidence(
-        &state,
-        &metric,
-        &view,
-        previous.as_ref(),
-        (&query.from, &query.to),
-    )
-    .await?;
+    let (view, _, metric, evidence) =
+        load_with_evidence(&state, id, (&query.from, &query.to)).await?;
     let mut ctx = base_context(
         Some(&session),
         &format!("Sign off proposal {} for {}", view.id, metric.name),
@@ -692,10 +696,8 @@ async fn step(
             {
                 return Err(PageError(api));
             }
-            let (view, previous) = flow::get(&state.store, id).await?;
-            let metric = metrics::get(&state.store, &view.metric).await?;
-            let evidence =
-                proposal_evidence(state, &metric, &view, previous.as_ref(), ("", "")).await?;
+            let (view, previous, metric, evidence) =
+                load_with_evidence(state, id, ("", "")).await?;
             let mut response = proposal_page(
                 session,
                 &metric,
