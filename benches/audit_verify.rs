@@ -253,7 +253,7 @@ async fn on_database(label: &str, url: &str, chain: &[Stored]) {
         100.0 * read / whole
     );
     eprintln!("({label}: loading the events took {loaded:.1} s)");
-    store.pool().close().await;
+    store.close().await;
 }
 
 #[tokio::main(flavor = "multi_thread", worker_threads = 2)]

@@ -74,7 +74,7 @@ async fn fixture(url: &str, n: usize) {
             .unwrap();
     }
     tx.commit().await.unwrap();
-    store.pool().close().await;
+    store.close().await;
 }
 
 struct Running(Child);

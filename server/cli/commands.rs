@@ -29,7 +29,7 @@ pub async fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::Serve(args) => serve(args).await,
         Command::Demo(args) => demo(args).await,
         Command::Migrate(db) => {
-            let store = Store::connect(&db.database_url).await?;
+            let store = Store::connect_with(&db.database_url, db.settings()).await?;
             store.migrate().await?;
             println!("migrated {}", store.backend().name());
             Ok(())
@@ -122,9 +122,9 @@ fn web_config(args: &ServeArgs) -> anyhow::Result<WebConfig> {
 async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     let config = web_config(&args)?;
     let store = if args.skip_migrations {
-        Store::open_migrated(&args.db.database_url).await?
+        Store::open_migrated(&args.db.database_url, args.db.settings()).await?
     } else {
-        Store::open(&args.db.database_url).await?
+        Store::open_with(&args.db.database_url, args.db.settings()).await?
     };
     if users::count(&store).await? == 0 {
         tracing::warn!(
@@ -238,7 +238,7 @@ async fn user(cmd: UserCommand) -> anyhow::Result<()> {
             db,
         } => {
             let password = read_password()?;
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let input = NewUser {
                 username,
                 display_name,
@@ -256,7 +256,7 @@ async fn user(cmd: UserCommand) -> anyhow::Result<()> {
             );
         }
         UserCommand::List { db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             for u in users::list(&store).await? {
                 println!(
                     "{}\t{}\t{}\t{}",
@@ -268,21 +268,21 @@ async fn user(cmd: UserCommand) -> anyhow::Result<()> {
             }
         }
         UserCommand::SetRoles { username, role, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let user = user_ops::set_roles(&store, By::Operator, &username, &role)
                 .await
                 .map_err(explain)?;
             println!("{} now has roles {}", user.username, user.roles.to_list());
         }
         UserCommand::Deactivate { username, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             user_ops::set_active(&store, By::Operator, &username, false)
                 .await
                 .map_err(explain)?;
             println!("deactivated {username}");
         }
         UserCommand::Activate { username, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             user_ops::set_active(&store, By::Operator, &username, true)
                 .await
                 .map_err(explain)?;
@@ -294,7 +294,7 @@ async fn user(cmd: UserCommand) -> anyhow::Result<()> {
             db,
         } => {
             let password = read_password()?;
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             user_ops::reset_password(&store, By::Operator, &username, &password)
                 .await
                 .map_err(explain)?;
@@ -314,7 +314,7 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
             db,
         } => {
             let scope = Scope::parse(&scope).map_err(anyhow::Error::msg)?;
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let expires_at = expires_in_days.map(|d| Timestamp::now().plus_seconds(d * 86_400));
             let (secret, _) =
                 user_ops::issue_token(&store, By::Operator, &username, scope, &label, expires_at)
@@ -323,7 +323,7 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
             println!("{secret}");
         }
         TokenCommand::List { username, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let now = Timestamp::now();
             println!("id\tprefix\tusername\tscope\tstatus\texpires_at\tlabel");
             for t in user_ops::list_tokens(&store, By::Operator, username.as_deref())
@@ -352,7 +352,7 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
             }
         }
         TokenCommand::Revoke { id, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let t = user_ops::revoke_token(&store, By::Operator, id)
                 .await
                 .map_err(explain)?;
@@ -379,7 +379,7 @@ async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
     } else {
         Mode::Merge
     };
-    let store = Store::open(&db.database_url).await?;
+    let store = Store::open_with(&db.database_url, db.settings()).await?;
     // The metric first, so a wrong key is said before a large file is read.
     crate::store::metrics::get(&store, &metric)
         .await
@@ -449,13 +449,13 @@ async fn policy(cmd: PolicyCommand) -> anyhow::Result<()> {
         } => (db, reviewers_required),
         PolicyCommand::Show { db } => (db, None),
     };
-    let store = Store::open(&db.database_url).await?;
+    let store = Store::open_with(&db.database_url, db.settings()).await?;
     if let Some(n) = reviewers_required {
         crate::ops::proposals::set_reviewers_required(&store, By::Operator, n)
             .await
             .map_err(explain)?;
     }
-    let mut conn = store.pool().acquire().await?;
+    let mut conn = store.read().await?;
     let n = crate::store::policy::reviewers_required(&mut conn).await?;
     println!("reviewers_required = {n}");
     Ok(())
@@ -468,7 +468,7 @@ async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
         .map(crate::audit::parse_known_head)
         .transpose()
         .map_err(|e| anyhow::anyhow!("--known-head {e}"))?;
-    let store = Store::open(&db.database_url).await?;
+    let store = Store::open_with(&db.database_url, db.settings()).await?;
     match crate::store::events::verify(&store, known).await? {
         Ok((count, head)) => {
             println!("ok {count} {head}");
@@ -489,7 +489,7 @@ async fn export(args: ExportArgs) -> anyhow::Result<()> {
     };
     let as_of = time("as-of", &args.as_of)?;
     let known_at = time("known-at", &args.known_at)?;
-    let store = Store::open(&args.db.database_url).await?;
+    let store = Store::open_with(&args.db.database_url, args.db.settings()).await?;
     let signer = crate::publish::signing::load_or_create(&store, &args.key.signing_key).await?;
     let publisher = crate::publish::Publisher::new(signer);
     let rendered = publisher.at(&store, as_of, known_at, None).await?;
@@ -506,7 +506,7 @@ async fn export(args: ExportArgs) -> anyhow::Result<()> {
 async fn keys(cmd: KeysCommand) -> anyhow::Result<()> {
     match cmd {
         KeysCommand::Rotate { key, db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             let signer = crate::publish::signing::rotate(&store, &key.signing_key).await?;
             println!(
                 "new signing key {} written to {}; restart every instance with it",
@@ -515,7 +515,7 @@ async fn keys(cmd: KeysCommand) -> anyhow::Result<()> {
             );
         }
         KeysCommand::List { db } => {
-            let store = Store::open(&db.database_url).await?;
+            let store = Store::open_with(&db.database_url, db.settings()).await?;
             println!("key_id\tstatus\tcreated_at\tretired_at\tpublic_key");
             for k in crate::publish::signing::registry(&store).await? {
                 println!(

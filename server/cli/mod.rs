@@ -28,6 +28,30 @@ pub struct DatabaseArgs {
     /// Database to use: sqlite://FILE (created if missing) or postgres://USER@HOST/DB.
     #[arg(long, env = "CUTPOINTS_DATABASE_URL", default_value = DEFAULT_DATABASE_URL)]
     pub database_url: String,
+    /// Seconds to wait for the database (a connection, another writer's lock, one
+    /// statement) before giving up; the web answers 503 with Retry-After past it.
+    #[arg(long, env = "CUTPOINTS_DB_TIMEOUT", default_value = "5", value_parser = parse_seconds)]
+    pub db_timeout: std::time::Duration,
+}
+
+impl DatabaseArgs {
+    pub fn settings(&self) -> crate::store::StoreSettings {
+        crate::store::StoreSettings {
+            timeout: self.db_timeout,
+        }
+    }
+}
+
+/// A positive number of seconds, fractions allowed (`0.5`).
+fn parse_seconds(text: &str) -> Result<std::time::Duration, String> {
+    match text.trim().parse::<f64>() {
+        Ok(s) if s.is_finite() && s > 0.0 && s <= 3600.0 => {
+            Ok(std::time::Duration::from_secs_f64(s))
+        }
+        _ => Err(format!(
+            "{text:?} is not a number of seconds between 0 and 3600"
+        )),
+    }
 }
 
 #[derive(Args, Debug, Clone)]

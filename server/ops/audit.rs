@@ -10,11 +10,11 @@ use crate::domain::Role;
 use crate::domain::Timestamp;
 use crate::engine::changes::compare;
 use crate::engine::workflow::signoff_reasons;
+use crate::store::Store;
 use crate::store::events::{self, EventFilter};
 use crate::store::metrics::{self, Metric, MetricFilter};
 use crate::store::users::User;
 use crate::store::versions::{self, VersionRecord};
-use crate::store::{Store, StoreError};
 
 /// Auditors read everything; admins too.
 pub fn require_auditor(user: &User) -> OpResult<()> {
@@ -27,8 +27,8 @@ pub fn require_auditor(user: &User) -> OpResult<()> {
     }
 }
 
-async fn conn(store: &Store) -> OpResult<sqlx::pool::PoolConnection<sqlx::Any>> {
-    Ok(store.pool().acquire().await.map_err(StoreError::from)?)
+async fn conn(store: &Store) -> OpResult<crate::store::Db> {
+    Ok(store.read().await?)
 }
 
 /// Every metric, in key order (the register is small enough to read whole).

@@ -277,7 +277,7 @@ pub async fn history(store: &Store, metric: Metric, window: Window) -> OpResult<
             "from must be before to",
         )));
     }
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     let points = rows::list(&mut conn, metric.id, window.from, window.to).await?;
     drop(conn);
     let values: Vec<f64> = points.iter().map(|o| o.value).collect();
@@ -387,7 +387,7 @@ pub async fn evidence(
     let metric = metrics::get(store, key).await?;
     let now = store.now();
     let in_force = {
-        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        let mut conn = store.read().await?;
         versions::in_force(&mut conn, metric.id, now, now).await?
     };
     let history = history(store, metric, window).await?;
@@ -447,7 +447,7 @@ pub async fn proposal_backtest(
     critical_share: f64,
 ) -> OpResult<ProposalBacktest> {
     let (bundle, previous) = {
-        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        let mut conn = store.read().await?;
         let bundle = proposals::bundle(&mut conn, id)
             .await?
             .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?;
@@ -519,7 +519,7 @@ pub async fn version_backtest(
 ) -> OpResult<VersionBacktest> {
     let metric = metrics::get(store, key).await?;
     let all = {
-        let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+        let mut conn = store.read().await?;
         versions::list(&mut conn, metric.id).await?
     };
     let find = |n: i64| {
@@ -583,6 +583,6 @@ fn compared(
 /// A window of stored observations, for the API's listing.
 pub async fn list(store: &Store, key: &str, window: Window) -> OpResult<Vec<Observation>> {
     let metric = metrics::get(store, key).await?;
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     Ok(rows::list(&mut conn, metric.id, window.from, window.to).await?)
 }

@@ -831,7 +831,7 @@ fn revision_view(r: &crate::store::proposals::RevisionRecord) -> RevisionView {
 
 /// Reads a proposal with everything said about it; anyone signed in may.
 pub async fn get(store: &Store, id: i64) -> OpResult<(ProposalView, Option<VersionRecord>)> {
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     let bundle = records::bundle(&mut conn, id)
         .await?
         .ok_or_else(|| StoreError::NotFound(format!("no proposal with id {id}")))?;
@@ -843,7 +843,7 @@ pub async fn get(store: &Store, id: i64) -> OpResult<(ProposalView, Option<Versi
 /// The version a proposal is compared with: the latest approved one, or for an approved
 /// proposal the version before its own.
 pub async fn compared_version(
-    conn: &mut sqlx::AnyConnection,
+    conn: &mut crate::store::Db,
     proposal: &records::ProposalRecord,
 ) -> OpResult<Option<VersionRecord>> {
     Ok(match proposal.version_number {
@@ -945,7 +945,7 @@ pub struct Inbox {
 }
 
 pub async fn inbox(store: &Store, by: &User) -> OpResult<Inbox> {
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     let required = policy::reviewers_required(&mut conn).await?;
     let open = records::in_states(
         &mut conn,

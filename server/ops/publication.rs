@@ -37,7 +37,7 @@ pub struct Change {
 }
 
 /// The time at which the set reached `revision` (None for revision 0: before anything).
-async fn time_of(conn: &mut sqlx::AnyConnection, revision: i64) -> OpResult<Option<Timestamp>> {
+async fn time_of(conn: &mut crate::store::Db, revision: i64) -> OpResult<Option<Timestamp>> {
     if revision == 0 {
         return Ok(None);
     }
@@ -53,7 +53,7 @@ async fn time_of(conn: &mut sqlx::AnyConnection, revision: i64) -> OpResult<Opti
 }
 
 async fn set_at(
-    conn: &mut sqlx::AnyConnection,
+    conn: &mut crate::store::Db,
     t: Option<Timestamp>,
 ) -> OpResult<Vec<(String, VersionRecord)>> {
     match t {
@@ -63,7 +63,7 @@ async fn set_at(
 }
 
 pub async fn changes(store: &Store, from: i64, to: i64) -> OpResult<Vec<Change>> {
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     let t_from = time_of(&mut conn, from).await?;
     let t_to = time_of(&mut conn, to).await?;
     let old: std::collections::BTreeMap<String, VersionRecord> =
@@ -105,7 +105,7 @@ pub async fn changes(store: &Store, from: i64, to: i64) -> OpResult<Vec<Change>>
 /// Every metric key in the register.
 pub async fn metric_keys(store: &Store) -> OpResult<std::collections::HashSet<String>> {
     let keys: Vec<String> = sqlx::query_scalar("SELECT key FROM metrics")
-        .fetch_all(store.pool())
+        .fetch_all(&mut store.read().await?)
         .await
         .map_err(StoreError::from)?;
     Ok(keys.into_iter().collect())

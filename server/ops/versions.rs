@@ -74,11 +74,7 @@ pub fn view(
 
 /// Every version of the metric, oldest first, with its status now.
 pub async fn history(store: &Store, metric: &Metric) -> OpResult<Vec<VersionView>> {
-    let mut conn = store
-        .pool()
-        .acquire()
-        .await
-        .map_err(crate::store::StoreError::from)?;
+    let mut conn = store.read().await?;
     let all = versions::list(&mut conn, metric.id).await?;
     let statuses = versions::statuses(&all, store.now());
     Ok(all
@@ -103,11 +99,7 @@ impl MetricThresholds {
 
 pub async fn thresholds(store: &Store, metric: &Metric) -> OpResult<MetricThresholds> {
     let history = history(store, metric).await?;
-    let mut conn = store
-        .pool()
-        .acquire()
-        .await
-        .map_err(crate::store::StoreError::from)?;
+    let mut conn = store.read().await?;
     let proposals = crate::store::proposals::for_metric(&mut conn, metric.id).await?;
     Ok(MetricThresholds { history, proposals })
 }

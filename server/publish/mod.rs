@@ -8,7 +8,7 @@ use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
 use crate::domain::Timestamp;
-use crate::store::{Store, StoreError, StoreResult, events, versions};
+use crate::store::{Store, StoreResult, events, versions};
 use document::{Rendered, SetContent};
 pub use signing::Signer;
 
@@ -24,7 +24,7 @@ pub async fn content(
     requested: (Option<Timestamp>, Option<Timestamp>),
     only: Option<&str>,
 ) -> StoreResult<SetContent> {
-    let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+    let mut conn = store.read().await?;
     let (set_revision, in_force_since) = versions::set_state(&mut conn, as_of, known_at).await?;
     let mut in_force = versions::in_force_all(&mut conn, as_of, known_at).await?;
     // Byte order of keys, whatever the database's collation.
@@ -128,7 +128,7 @@ impl Publisher {
             return Ok(hit);
         }
         let (revision, valid_until) = {
-            let mut conn = store.pool().acquire().await.map_err(StoreError::from)?;
+            let mut conn = store.read().await?;
             let (revision, _) = versions::set_state(&mut conn, now, now).await?;
             (revision, versions::next_scheduled(&mut conn, now).await?)
         };

@@ -152,7 +152,7 @@ pub async fn registry(store: &Store) -> StoreResult<Vec<PublicKey>> {
     let rows = sqlx::query(
         "SELECT key_id, algorithm, public_key, created_at, retired_at FROM signing_keys ORDER BY created_at, key_id",
     )
-    .fetch_all(store.pool())
+    .fetch_all(&mut store.read().await?)
     .await?;
     rows.iter()
         .map(|r| {

@@ -4,7 +4,9 @@
 //! Each event is hash-linked to the one before; `crate::audit` states and checks the chain.
 
 use serde_json::{Value, json};
-use sqlx::{AnyConnection, Row};
+use sqlx::Row;
+
+use super::Db;
 
 use super::StoreResult;
 pub use crate::audit::{Entry, Event, GENESIS_HASH, chain_hash};
@@ -36,7 +38,7 @@ pub struct ChainHead {
     pub at: Timestamp,
 }
 
-pub(super) async fn lock_head(conn: &mut AnyConnection) -> StoreResult<ChainHead> {
+pub(super) async fn lock_head(conn: &mut Db) -> StoreResult<ChainHead> {
     // A no-op update takes the row lock on PostgreSQL (held to commit), which serialises
     // writers; on SQLite, BEGIN IMMEDIATE already did.
     sqlx::query("UPDATE chain_head SET seq = seq WHERE id = 1")
@@ -52,7 +54,7 @@ pub(super) async fn lock_head(conn: &mut AnyConnection) -> StoreResult<ChainHead
     })
 }
 
-pub(super) async fn store_head(conn: &mut AnyConnection, head: &ChainHead) -> StoreResult<()> {
+pub(super) async fn store_head(conn: &mut Db, head: &ChainHead) -> StoreResult<()> {
     sqlx::query("UPDATE chain_head SET seq = $1, hash = $2, at = $3 WHERE id = 1")
         .bind(head.seq)
         .bind(&head.hash)
@@ -63,7 +65,7 @@ pub(super) async fn store_head(conn: &mut AnyConnection, head: &ChainHead) -> St
 }
 
 pub(super) async fn append(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     head: &mut ChainHead,
     at: Timestamp,
     actor: &Actor,
@@ -141,7 +143,7 @@ pub struct EventFilter {
 }
 
 /// Events in order of seq, as the filter asks.
-pub async fn select(conn: &mut AnyConnection, f: &EventFilter) -> StoreResult<Vec<Entry>> {
+pub async fn select(conn: &mut Db, f: &EventFilter) -> StoreResult<Vec<Entry>> {
     let rows = sqlx::query(
         "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
          WHERE seq > $1 AND ($2 = '' OR subject = $2) AND ($3 = '' OR actor = $3) \
@@ -167,7 +169,7 @@ pub async fn list(
     limit: i64,
     subject: Option<&str>,
 ) -> StoreResult<Vec<Entry>> {
-    let mut conn = store.pool().acquire().await?;
+    let mut conn = store.read().await?;
     let filter = EventFilter {
         after,
         limit,
@@ -178,7 +180,7 @@ pub async fn list(
 }
 
 /// The chain's head as recorded: (seq, hash).
-pub async fn head(conn: &mut AnyConnection) -> StoreResult<(i64, String)> {
+pub async fn head(conn: &mut Db) -> StoreResult<(i64, String)> {
     let row = sqlx::query("SELECT seq, hash FROM chain_head WHERE id = 1")
         .fetch_one(&mut *conn)
         .await?;
@@ -187,7 +189,7 @@ pub async fn head(conn: &mut AnyConnection) -> StoreResult<(i64, String)> {
 
 /// The chain's head as it was at `at`: the hash of the last event recorded by then (the
 /// genesis hash before the first).
-pub async fn head_at(conn: &mut AnyConnection, at: Timestamp) -> StoreResult<String> {
+pub async fn head_at(conn: &mut Db, at: Timestamp) -> StoreResult<String> {
     let hash: Option<String> =
         sqlx::query_scalar("SELECT hash FROM events WHERE at <= $1 ORDER BY seq DESC LIMIT 1")
             .bind(at)
@@ -206,7 +208,7 @@ pub async fn verify(
     store: &super::Store,
     known_head: Option<(i64, String)>,
 ) -> StoreResult<Result<(i64, String), crate::audit::Break>> {
-    let mut conn = store.pool().acquire().await?;
+    let mut conn = store.read().await?;
     let mut verifier = crate::audit::Verifier::new(known_head);
     let mut after = 0;
     let mut last_seq = 0;
@@ -218,7 +220,7 @@ pub async fn verify(
         )
         .bind(after)
         .bind(VERIFY_PAGE)
-        .fetch_all(&mut *conn)
+        .fetch_all(&mut conn)
         .await?;
         for row in &rows {
             let seq: i64 = row.try_get("seq")?;
@@ -261,6 +263,6 @@ pub async fn verify(
 /// Number of events with a given action (used by tests and the throttle summary).
 pub async fn count(store: &super::Store) -> StoreResult<i64> {
     Ok(sqlx::query_scalar("SELECT COUNT(*) FROM events")
-        .fetch_one(store.pool())
+        .fetch_one(&mut store.read().await?)
         .await?)
 }

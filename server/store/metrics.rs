@@ -129,7 +129,7 @@ macro_rules! select_metrics {
 
 /// Fills in owners and tags for metrics already read, with one query each.
 async fn attach_owners_and_tags(
-    conn: &mut sqlx::AnyConnection,
+    conn: &mut crate::store::Db,
     metrics: &mut [Metric],
 ) -> StoreResult<()> {
     if metrics.is_empty() {
@@ -173,7 +173,7 @@ async fn attach_owners_and_tags(
     Ok(())
 }
 
-async fn find_on(conn: &mut sqlx::AnyConnection, key: &str) -> StoreResult<Option<Metric>> {
+async fn find_on(conn: &mut crate::store::Db, key: &str) -> StoreResult<Option<Metric>> {
     let row = sqlx::query(select_metrics!("WHERE m.key = $1"))
         .bind(key)
         .fetch_optional(&mut *conn)
@@ -188,7 +188,7 @@ async fn find_on(conn: &mut sqlx::AnyConnection, key: &str) -> StoreResult<Optio
 }
 
 pub async fn find(store: &Store, key: &str) -> StoreResult<Option<Metric>> {
-    let mut conn = store.pool().acquire().await?;
+    let mut conn = store.read().await?;
     find_on(&mut conn, key).await
 }
 
@@ -247,14 +247,14 @@ pub async fn list(
     let pattern = like_pattern(text);
     let tag = filter.tag.trim().to_lowercase();
     let owner = filter.owner.trim();
-    let mut conn = store.pool().acquire().await?;
+    let mut conn = store.read().await?;
     let total: i64 =
         sqlx::query_scalar(concat!("SELECT COUNT(*) FROM metrics m ", metric_filter!()))
             .bind(text)
             .bind(&pattern)
             .bind(&tag)
             .bind(owner)
-            .fetch_one(&mut *conn)
+            .fetch_one(&mut conn)
             .await?;
     let rows = sqlx::query(concat!(
         select_metrics!(""),
@@ -267,7 +267,7 @@ pub async fn list(
     .bind(owner)
     .bind(per_page)
     .bind((page - 1) * per_page)
-    .fetch_all(&mut *conn)
+    .fetch_all(&mut conn)
     .await?;
     let mut metrics = rows
         .iter()
@@ -503,6 +503,6 @@ pub async fn update(
 /// How many metrics exist (tests check that refused requests wrote nothing).
 pub async fn count(store: &Store) -> StoreResult<i64> {
     Ok(sqlx::query_scalar("SELECT COUNT(*) FROM metrics")
-        .fetch_one(store.pool())
+        .fetch_one(&mut store.read().await?)
         .await?)
 }

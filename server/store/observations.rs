@@ -1,7 +1,9 @@
 //! Each metric's history: one value per period start. Written in the caller's transaction, so
 //! an upload and its event land together or not at all.
 
-use sqlx::{AnyConnection, Row};
+use sqlx::Row;
+
+use super::Db;
 
 use super::{StoreResult, WriteTx};
 use crate::domain::Timestamp;
@@ -44,7 +46,7 @@ pub struct Written {
 }
 
 /// The number of periods stored for a metric.
-pub async fn count(conn: &mut AnyConnection, metric_id: i64) -> StoreResult<u64> {
+pub async fn count(conn: &mut Db, metric_id: i64) -> StoreResult<u64> {
     let n: i64 = sqlx::query("SELECT COUNT(*) FROM observations WHERE metric_id = $1")
         .bind(metric_id)
         .fetch_one(&mut *conn)
@@ -165,7 +167,7 @@ pub async fn write_staged(
 
 /// A metric's history from `from` (inclusive) to `to` (exclusive), oldest first.
 pub async fn list(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     metric_id: i64,
     from: Option<Timestamp>,
     to: Option<Timestamp>,

@@ -1,7 +1,7 @@
 //! The approval policy, kept in the database so that every instance applies the same rule.
 
+use super::Db;
 use serde_json::json;
-use sqlx::AnyConnection;
 
 use super::{Actor, StoreError, StoreResult, WriteTx};
 
@@ -10,7 +10,7 @@ pub const REVIEWERS_MIN: i64 = 1;
 pub const REVIEWERS_MAX: i64 = 10;
 
 /// How many current reviewer approvals a proposal needs.
-pub async fn reviewers_required(conn: &mut AnyConnection) -> StoreResult<u32> {
+pub async fn reviewers_required(conn: &mut Db) -> StoreResult<u32> {
     let value: Option<String> =
         sqlx::query_scalar("SELECT value FROM settings WHERE name = 'reviewers_required'")
             .fetch_optional(&mut *conn)

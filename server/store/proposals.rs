@@ -3,8 +3,10 @@
 //! sign-off is stale is derived (it names a revision that is no longer the latest).
 
 use serde::Serialize;
+use sqlx::Row;
 use sqlx::any::AnyRow;
-use sqlx::{AnyConnection, Row};
+
+use super::Db;
 
 use super::versions::cuts_from_row;
 use super::{StoreError, StoreResult, WriteTx};
@@ -183,7 +185,7 @@ macro_rules! select_proposals {
     };
 }
 
-pub async fn find(conn: &mut AnyConnection, id: i64) -> StoreResult<Option<ProposalRecord>> {
+pub async fn find(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalRecord>> {
     let row = sqlx::query(select_proposals!("WHERE p.id = $1"))
         .bind(id)
         .fetch_optional(&mut *conn)
@@ -192,10 +194,7 @@ pub async fn find(conn: &mut AnyConnection, id: i64) -> StoreResult<Option<Propo
 }
 
 /// The metric's open proposal (draft, in review or sent back), if any.
-pub async fn open_for_metric(
-    conn: &mut AnyConnection,
-    metric_id: i64,
-) -> StoreResult<Option<ProposalRecord>> {
+pub async fn open_for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Option<ProposalRecord>> {
     let row = sqlx::query(select_proposals!(
         "WHERE p.metric_id = $1 AND p.state IN ('draft', 'in_review', 'sent_back')"
     ))
@@ -206,10 +205,7 @@ pub async fn open_for_metric(
 }
 
 /// Every proposal of a metric, newest first.
-pub async fn for_metric(
-    conn: &mut AnyConnection,
-    metric_id: i64,
-) -> StoreResult<Vec<ProposalRecord>> {
+pub async fn for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<ProposalRecord>> {
     let rows = sqlx::query(select_proposals!(
         "WHERE p.metric_id = $1 ORDER BY p.id DESC"
     ))
@@ -221,7 +217,7 @@ pub async fn for_metric(
 
 /// Proposals in the given states, least recently touched first (the inboxes filter further).
 pub async fn in_states(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     states: &[ProposalState],
 ) -> StoreResult<Vec<ProposalRecord>> {
     if states.is_empty() {
@@ -267,7 +263,7 @@ fn revision_from_row(row: &AnyRow) -> StoreResult<RevisionRecord> {
 }
 
 /// The proposal and all its records, or `None` when there is no such proposal.
-pub async fn bundle(conn: &mut AnyConnection, id: i64) -> StoreResult<Option<ProposalBundle>> {
+pub async fn bundle(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalBundle>> {
     let Some(proposal) = find(conn, id).await? else {
         return Ok(None);
     };

@@ -39,7 +39,7 @@ pub async fn create(store: &Store, user: &User) -> StoreResult<(String, Session)
     .bind(&csrf)
     .bind(now)
     .bind(now.plus_seconds(ABSOLUTE_SECONDS))
-    .execute(store.pool())
+    .execute(&mut store.unrecorded_write().await?)
     .await?;
     Ok((
         secret,
@@ -64,7 +64,7 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
     .bind(&id_hash)
     .bind(now)
     .bind(now.plus_seconds(-IDLE_SECONDS))
-    .fetch_optional(store.pool())
+    .fetch_optional(&mut store.read().await?)
     .await?;
     let Some(row) = row else {
         return Ok(None);
@@ -74,7 +74,7 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
         sqlx::query("UPDATE sessions SET last_seen_at = $1 WHERE id_hash = $2")
             .bind(now)
             .bind(&id_hash)
-            .execute(store.pool())
+            .execute(&mut store.unrecorded_write().await?)
             .await?;
     }
     let roles: String = row.try_get("roles")?;
@@ -96,7 +96,7 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
 pub async fn end(store: &Store, id_hash: &str) -> StoreResult<()> {
     sqlx::query("DELETE FROM sessions WHERE id_hash = $1")
         .bind(id_hash)
-        .execute(store.pool())
+        .execute(&mut store.unrecorded_write().await?)
         .await?;
     Ok(())
 }
@@ -116,7 +116,7 @@ pub async fn purge_expired(store: &Store) -> StoreResult<u64> {
     let done = sqlx::query("DELETE FROM sessions WHERE expires_at <= $1 OR last_seen_at <= $2")
         .bind(now)
         .bind(now.plus_seconds(-IDLE_SECONDS))
-        .execute(store.pool())
+        .execute(&mut store.unrecorded_write().await?)
         .await?;
     Ok(done.rows_affected())
 }

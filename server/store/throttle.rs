@@ -50,7 +50,7 @@ pub async fn locked_until(
     )
     .bind(scope.as_str())
     .bind(subject)
-    .fetch_optional(store.pool())
+    .fetch_optional(&mut store.read().await?)
     .await?;
     let now = Timestamp::now();
     Ok(until.flatten().filter(|t| *t > now))
@@ -63,7 +63,7 @@ pub async fn count_refused(store: &Store, scope: Scope, subject: &str) -> StoreR
     )
     .bind(scope.as_str())
     .bind(subject)
-    .execute(store.pool())
+    .execute(&mut store.unrecorded_write().await?)
     .await?;
     Ok(())
 }
@@ -139,7 +139,7 @@ pub async fn clear(store: &Store, scope: Scope, subject: &str) -> StoreResult<()
     sqlx::query("DELETE FROM signin_throttle WHERE scope = $1 AND subject = $2")
         .bind(scope.as_str())
         .bind(subject)
-        .execute(store.pool())
+        .execute(&mut store.unrecorded_write().await?)
         .await?;
     Ok(())
 }

@@ -168,7 +168,7 @@ pub async fn list(store: &Store, username: Option<&str>) -> StoreResult<Vec<Toke
         "WHERE ($1 = '' OR u.username = $1) ORDER BY t.id DESC"
     ))
     .bind(username.unwrap_or(""))
-    .fetch_all(store.pool())
+    .fetch_all(&mut store.read().await?)
     .await?;
     rows.iter().map(info_from_row).collect()
 }
@@ -185,7 +185,7 @@ pub async fn authenticate(store: &Store, secret: &str) -> StoreResult<Option<(Us
     ))
     .bind(stored_hash(secret))
     .bind(now)
-    .fetch_optional(store.pool())
+    .fetch_optional(&mut store.read().await?)
     .await?;
     let Some(row) = row else {
         return Ok(None);

@@ -101,7 +101,7 @@ pub fn subject(username: &str) -> String {
 pub async fn find(store: &Store, username: &str) -> StoreResult<Option<User>> {
     let row = sqlx::query(select_users!("WHERE username = $1"))
         .bind(username)
-        .fetch_optional(store.pool())
+        .fetch_optional(&mut store.read().await?)
         .await?;
     row.as_ref().map(user_from_row).transpose()
 }
@@ -115,7 +115,7 @@ pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
 pub async fn by_id(store: &Store, id: i64) -> StoreResult<Option<User>> {
     let row = sqlx::query(select_users!("WHERE id = $1"))
         .bind(id)
-        .fetch_optional(store.pool())
+        .fetch_optional(&mut store.read().await?)
         .await?;
     row.as_ref().map(user_from_row).transpose()
 }
@@ -124,7 +124,7 @@ pub async fn by_id(store: &Store, id: i64) -> StoreResult<Option<User>> {
 pub async fn credentials(store: &Store, username: &str) -> StoreResult<Option<(User, String)>> {
     let row = sqlx::query(select_users!("WHERE username = $1"))
         .bind(username)
-        .fetch_optional(store.pool())
+        .fetch_optional(&mut store.read().await?)
         .await?;
     match row {
         Some(row) => Ok(Some((user_from_row(&row)?, row.try_get("password_hash")?))),
@@ -134,7 +134,7 @@ pub async fn credentials(store: &Store, username: &str) -> StoreResult<Option<(U
 
 pub async fn list(store: &Store) -> StoreResult<Vec<User>> {
     let rows = sqlx::query(select_users!("ORDER BY username"))
-        .fetch_all(store.pool())
+        .fetch_all(&mut store.read().await?)
         .await?;
     rows.iter().map(user_from_row).collect()
 }
@@ -268,6 +268,6 @@ pub async fn set_password(
 /// How many active people exist (the first admin is created by `user add`).
 pub async fn count(store: &Store) -> StoreResult<i64> {
     Ok(sqlx::query_scalar("SELECT COUNT(*) FROM users")
-        .fetch_one(store.pool())
+        .fetch_one(&mut store.read().await?)
         .await?)
 }

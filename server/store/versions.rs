@@ -3,7 +3,9 @@
 //! job has to run when a scheduled version takes effect.
 
 use serde::Serialize;
-use sqlx::{AnyConnection, Row};
+use sqlx::Row;
+
+use super::Db;
 
 use super::{StoreError, StoreResult, WriteTx};
 use crate::domain::Timestamp;
@@ -122,7 +124,7 @@ macro_rules! select_versions {
 }
 
 /// Every version of a metric, oldest first.
-pub async fn list(conn: &mut AnyConnection, metric_id: i64) -> StoreResult<Vec<VersionRecord>> {
+pub async fn list(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<VersionRecord>> {
     let rows = sqlx::query(select_versions!("WHERE metric_id = $1 ORDER BY number"))
         .bind(metric_id)
         .fetch_all(&mut *conn)
@@ -132,10 +134,7 @@ pub async fn list(conn: &mut AnyConnection, metric_id: i64) -> StoreResult<Vec<V
 
 /// The latest approved version (scheduled ones included): the one a new version follows in
 /// valid time, since effective times never run backwards.
-pub async fn latest(
-    conn: &mut AnyConnection,
-    metric_id: i64,
-) -> StoreResult<Option<VersionRecord>> {
+pub async fn latest(conn: &mut Db, metric_id: i64) -> StoreResult<Option<VersionRecord>> {
     let row = sqlx::query(select_versions!(
         "WHERE metric_id = $1 ORDER BY number DESC LIMIT 1"
     ))
@@ -148,7 +147,7 @@ pub async fn latest(
 /// The version in force at `as_of` as the register knew it at `known_at`: the latest one
 /// approved by `known_at` whose effective time is not after `as_of`.
 pub async fn in_force(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     metric_id: i64,
     as_of: Timestamp,
     known_at: Timestamp,
@@ -237,14 +236,14 @@ pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
 
 /// `set_revision` at `at`: how many versions, across the register, had been both approved and
 /// effective by then. It changes exactly when the published set's content changes.
-pub async fn set_revision(conn: &mut AnyConnection, at: Timestamp) -> StoreResult<i64> {
+pub async fn set_revision(conn: &mut Db, at: Timestamp) -> StoreResult<i64> {
     Ok(set_state(conn, at, at).await?.0)
 }
 
 /// The published set's revision at `as_of` as recorded by `known_at`, and when that revision
 /// took effect: the versions approved by both times and effective by `as_of`.
 pub async fn set_state(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     as_of: Timestamp,
     known_at: Timestamp,
 ) -> StoreResult<(i64, Option<Timestamp>)> {
@@ -262,10 +261,7 @@ pub async fn set_state(
 
 /// The next time the current set changes without a new approval: a scheduled version's
 /// effective time.
-pub async fn next_scheduled(
-    conn: &mut AnyConnection,
-    now: Timestamp,
-) -> StoreResult<Option<Timestamp>> {
+pub async fn next_scheduled(conn: &mut Db, now: Timestamp) -> StoreResult<Option<Timestamp>> {
     Ok(sqlx::query_scalar(
         "SELECT MIN(effective_from) FROM versions WHERE effective_from > $1 AND approved_at <= $1",
     )
@@ -277,7 +273,7 @@ pub async fn next_scheduled(
 /// Every metric's version in force at `as_of` as recorded by `known_at`, with the metric's
 /// key, in key order.
 pub async fn in_force_all(
-    conn: &mut AnyConnection,
+    conn: &mut Db,
     as_of: Timestamp,
     known_at: Timestamp,
 ) -> StoreResult<Vec<(String, VersionRecord)>> {
@@ -300,10 +296,7 @@ pub async fn in_force_all(
 }
 
 /// Keys of metrics added to the register by `at`.
-pub async fn metrics_existing_at(
-    conn: &mut AnyConnection,
-    at: Timestamp,
-) -> StoreResult<Vec<String>> {
+pub async fn metrics_existing_at(conn: &mut Db, at: Timestamp) -> StoreResult<Vec<String>> {
     Ok(
         sqlx::query_scalar("SELECT key FROM metrics WHERE created_at <= $1 ORDER BY key")
             .bind(at)

@@ -87,19 +87,39 @@ impl ApiError {
     }
 }
 
+/// Retry-After (RFC 9110 §10.2.3) when the database was busy: another writer held the lock,
+/// which lasts a fraction of a second as a rule.
+pub const BUSY_RETRY_SECONDS: u64 = 1;
+/// Retry-After when the database did not answer: a restart takes seconds.
+pub const UNAVAILABLE_RETRY_SECONDS: u64 = 5;
+
 impl From<StoreError> for ApiError {
     fn from(e: StoreError) -> Self {
         match e {
             StoreError::NotFound(m) => ApiError::not_found(m),
             StoreError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
             StoreError::Invalid(p) => ApiError::invalid(p),
+            StoreError::Busy(why) => {
+                tracing::warn!(reason = %why, "database busy; answered 503");
+                ApiError {
+                    retry_after: Some(BUSY_RETRY_SECONDS),
+                    ..ApiError::new(
+                        StatusCode::SERVICE_UNAVAILABLE,
+                        "busy",
+                        "the database is busy with other changes and nothing was changed; try again shortly",
+                    )
+                }
+            }
             StoreError::Unavailable(err) => {
                 tracing::error!(error = %err, "database unavailable");
-                ApiError::new(
-                    StatusCode::SERVICE_UNAVAILABLE,
-                    "unavailable",
-                    "the database is not answering; try again shortly",
-                )
+                ApiError {
+                    retry_after: Some(UNAVAILABLE_RETRY_SECONDS),
+                    ..ApiError::new(
+                        StatusCode::SERVICE_UNAVAILABLE,
+                        "unavailable",
+                        "the database is not answering and nothing was changed; try again shortly",
+                    )
+                }
             }
             StoreError::Database(err) => {
                 tracing::error!(error = %err, "database error");

@@ -140,6 +140,7 @@ async fn healthz(State(state): State<AppState>) -> Response {
     } else {
         (
             StatusCode::SERVICE_UNAVAILABLE,
+            [(header::RETRY_AFTER, error::UNAVAILABLE_RETRY_SECONDS)],
             Json(json!({"error": {"code": "unavailable", "message": "the database is not answering"}})),
         )
             .into_response()

@@ -59,9 +59,9 @@ on_both_backends! {
                 app.store_url.rsplit_once('/').map(|(base, _)| format!("{base}/{name}")).unwrap()
             }
         };
-        let e = Store::open_migrated(&fresh_url).await.unwrap_err();
+        let e = Store::open_migrated(&fresh_url, Default::default()).await.unwrap_err();
         assert!(e.to_string().contains("cutpoints migrate"), "{e}");
-        assert!(Store::open_migrated(&app.store_url).await.is_ok());
+        assert!(Store::open_migrated(&app.store_url, Default::default()).await.is_ok());
         if app.backend == Backend::Postgres {
             let name = fresh_url.rsplit('/').next().unwrap();
             let _ = sqlx::query(sqlx::AssertSqlSafe(format!("DROP DATABASE IF EXISTS {name} WITH (FORCE)"))).execute(app.store.pool()).await;
@@ -102,7 +102,7 @@ async fn the_postgres_app_role_can_append_but_not_change_the_record() {
     let (scheme_user, rest) = app.store_url.split_once('@').unwrap();
     let scheme = scheme_user.split("://").next().unwrap();
     let as_app = format!("{scheme}://{role}@{rest}");
-    let store = Store::open_migrated(&as_app)
+    let store = Store::open_migrated(&as_app, Default::default())
         .await
         .expect("the app role opens the migrated database");
     let root = cutpoints::store::users::get(&store, "root").await.unwrap();
@@ -142,7 +142,7 @@ async fn the_postgres_app_role_can_append_but_not_change_the_record() {
             .0,
         3
     );
-    store.pool().close().await;
+    store.close().await;
     let _ = sqlx::query(sqlx::AssertSqlSafe(format!("DROP OWNED BY {role}")))
         .execute(app.store.pool())
         .await;

@@ -31,7 +31,7 @@ on_both_backends! {
         assert_eq!(r.status(), 200);
         let body: Value = r.json().await.unwrap();
         assert_eq!(body["status"], "ok");
-        app.store.pool().close().await;
+        app.store.close().await;
         let r = app.http.get(app.url("/healthz")).send().await.unwrap();
         assert_eq!(r.status(), 503);
         let body: Value = r.json().await.unwrap();

@@ -551,7 +551,7 @@ on_both_backends! {
         let mut body = hib(1.0, 2.5, 3.0, 4.0, "v2 later");
         body["effective_from"] = json!(effective.to_string());
         team.agree(body).await;
-        let mut conn = team.app.store.pool().acquire().await.unwrap();
+        let mut conn = team.app.store.read().await.unwrap();
         let at = |t: Timestamp| t;
         assert_eq!(set_revision(&mut conn, at(t1.plus_seconds(-1))).await.unwrap(), 0);
         let (_, m) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}"), None).await;

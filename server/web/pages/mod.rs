@@ -76,6 +76,7 @@ pub fn error_page(err: &ApiError) -> Response {
         StatusCode::PAYLOAD_TOO_LARGE => "Too large",
         StatusCode::UNSUPPORTED_MEDIA_TYPE => "Unsupported form encoding",
         StatusCode::TOO_MANY_REQUESTS => "Too many attempts",
+        StatusCode::SERVICE_UNAVAILABLE if err.code == "busy" => "Busy with other changes",
         StatusCode::SERVICE_UNAVAILABLE => "The database is not answering",
         _ => "Something went wrong",
     };
