@@ -6,6 +6,7 @@ pub mod evidence;
 pub mod metrics;
 pub mod proposals;
 pub mod publication;
+pub mod upkeep;
 pub mod users;
 pub mod versions;
 

@@ -15,6 +15,7 @@ pub mod sessions;
 pub mod throttle;
 mod timestamp;
 pub mod tokens;
+pub mod usage;
 pub mod users;
 pub mod versions;
 
@@ -154,6 +155,8 @@ pub struct Store {
     backend: Backend,
     settings: StoreSettings,
     health: Arc<Health>,
+    /// Uses of tokens and sessions waiting to be written (see [`usage`]).
+    usage: Arc<usage::Usage>,
     /// When set, the time writes are recorded at (the demo seeds an invented past; tests
     /// step through time). Shared by every clone of this handle.
     clock: Arc<RwLock<Option<Timestamp>>>,
@@ -238,6 +241,7 @@ impl Store {
             backend,
             settings,
             health: Arc::new(Health::new(options, backend == Backend::Postgres)),
+            usage: Arc::default(),
             clock: Arc::default(),
         })
     }

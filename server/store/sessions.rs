@@ -13,7 +13,8 @@ use crate::domain::{Roles, Timestamp};
 pub const IDLE_SECONDS: i64 = 2 * 60 * 60;
 /// A session ends this long after sign-in, however busy.
 pub const ABSOLUTE_SECONDS: i64 = 12 * 60 * 60;
-/// `last_seen_at` is refreshed at most this often, to keep reads from becoming writes.
+/// `last_seen_at` is refreshed at most this often; the refresh is written in a later batch
+/// (`usage::flush`), never by the request that reads the session.
 const TOUCH_EVERY_SECONDS: i64 = 60;
 
 /// A signed-in browser session.
@@ -71,11 +72,7 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
     };
     let last_seen: Timestamp = row.try_get("last_seen_at")?;
     if last_seen < now.plus_seconds(-TOUCH_EVERY_SECONDS) {
-        sqlx::query("UPDATE sessions SET last_seen_at = $1 WHERE id_hash = $2")
-            .bind(now)
-            .bind(&id_hash)
-            .execute(&mut store.unrecorded_write().await?)
-            .await?;
+        store.usage.session_seen(&id_hash, now);
     }
     let roles: String = row.try_get("roles")?;
     Ok(Some(Session {

@@ -193,11 +193,7 @@ pub async fn authenticate(store: &Store, secret: &str) -> StoreResult<Option<(Us
     let token_id: i64 = row.try_get("token_id")?;
     let last_used: Option<Timestamp> = row.try_get("last_used_at")?;
     if last_used.is_none_or(|t| t < now.plus_seconds(-60)) {
-        sqlx::query("UPDATE api_tokens SET last_used_at = $1 WHERE id = $2")
-            .bind(now)
-            .bind(token_id)
-            .execute(store.pool())
-            .await?;
+        store.usage.token_used(token_id, now);
     }
     let scope: String = row.try_get("scope")?;
     let roles: String = row.try_get("roles")?;

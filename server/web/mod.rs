@@ -345,6 +345,12 @@ pub async fn serve_on_threads(
     shutdown: impl Future<Output = ()> + Send + 'static,
 ) -> std::io::Result<()> {
     let (stop, stopped) = tokio::sync::watch::channel(false);
+    let upkeep = tokio::spawn(crate::ops::upkeep::run(state.store.clone(), {
+        let mut stopped = stopped.clone();
+        async move {
+            let _ = stopped.wait_for(|stop| *stop).await;
+        }
+    }));
     let mut threads = Vec::new();
     for (i, listener) in listeners.into_iter().enumerate() {
         let state = state.clone();
@@ -372,7 +378,7 @@ pub async fn serve_on_threads(
     }
     shutdown.await;
     let _ = stop.send(true);
-    tokio::task::spawn_blocking(move || {
+    let served = tokio::task::spawn_blocking(move || {
         for thread in threads {
             thread
                 .join()
@@ -381,7 +387,9 @@ pub async fn serve_on_threads(
         Ok(())
     })
     .await
-    .map_err(std::io::Error::other)?
+    .map_err(std::io::Error::other)?;
+    let _ = upkeep.await;
+    served
 }
 
 /// Serves `app(state)` on `listener` until `shutdown` completes, then finishes the requests
@@ -391,10 +399,17 @@ pub async fn serve(
     state: AppState,
     shutdown: impl Future<Output = ()> + Send + 'static,
 ) -> std::io::Result<()> {
-    axum::serve(
+    let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
+    let upkeep = tokio::spawn(crate::ops::upkeep::run(state.store.clone(), async {
+        let _ = stopped.await;
+    }));
+    let served = axum::serve(
         listener,
         app(state).into_make_service_with_connect_info::<SocketAddr>(),
     )
     .with_graceful_shutdown(shutdown)
-    .await
+    .await;
+    let _ = stop.send(());
+    let _ = upkeep.await;
+    served
 }

@@ -7,7 +7,7 @@ use cutpoints::domain::{Roles, Username};
 use cutpoints::ops::users::{By, add_with_hash};
 use cutpoints::store::tokens::Scope;
 use cutpoints::store::users::User;
-use cutpoints::store::{Store, events};
+use cutpoints::store::{Store, StoreSettings, events};
 use cutpoints::{AppState, WebConfig};
 use serde_json::Value;
 use tokio::net::TcpListener;
@@ -20,6 +20,11 @@ static PASSWORD_HASH: LazyLock<String> =
     LazyLock::new(|| cutpoints::auth::password::hash(PASSWORD));
 
 pub const POSTGRES_ENV: &str = "CUTPOINTS_TEST_POSTGRES_URL";
+
+/// A database timeout short enough for tests that wait past it.
+pub const IMPATIENT: StoreSettings = StoreSettings {
+    timeout: std::time::Duration::from_secs(1),
+};
 
 /// True under CI, where a missing prerequisite is a failure, not a skip.
 pub fn in_ci() -> bool {
@@ -69,7 +74,14 @@ impl TestApp {
     }
 
     pub async fn spawn_with(backend: Backend, config: WebConfig) -> Option<TestApp> {
-        Self::spawn_inner(backend, config, false)
+        Self::spawn_inner(backend, config, StoreSettings::default(), false)
+            .await
+            .map(|(app, _)| app)
+    }
+
+    /// The app with a short database timeout, for tests of what happens past it.
+    pub async fn spawn_impatient(backend: Backend) -> Option<TestApp> {
+        Self::spawn_inner(backend, WebConfig::default(), IMPATIENT, false)
             .await
             .map(|(app, _)| app)
     }
@@ -77,12 +89,19 @@ impl TestApp {
     /// An app whose database was seeded with the demo scenario before anything else was
     /// recorded (the scenario's invented past must come first in the event record).
     pub async fn spawn_demo(backend: Backend) -> Option<(TestApp, Vec<User>)> {
-        Self::spawn_inner(backend, WebConfig::default(), true).await
+        Self::spawn_inner(
+            backend,
+            WebConfig::default(),
+            StoreSettings::default(),
+            true,
+        )
+        .await
     }
 
     async fn spawn_inner(
         backend: Backend,
         config: WebConfig,
+        settings: StoreSettings,
         demo: bool,
     ) -> Option<(TestApp, Vec<User>)> {
         // Server-side errors (a template that fails, a database error) show in the output of
@@ -115,7 +134,9 @@ impl TestApp {
                 (url, None, Some((admin_url, name)))
             }
         };
-        let store = Store::open(&url).await.expect("open and migrate");
+        let store = Store::open_with(&url, settings)
+            .await
+            .expect("open and migrate");
         let people = if demo {
             cutpoints::demo::seed(&store).await.expect("the demo seeds")
         } else {
@@ -335,7 +356,10 @@ pub fn csrf_in(html: &str) -> Option<String> {
 /// Runs each test body once per backend: `NAME::sqlite` and `NAME::postgres`.
 #[macro_export]
 macro_rules! on_both_backends {
-    ($(async fn $name:ident($app:ident) $body:block)*) => {$(
+    ($(async fn $name:ident($app:ident) $body:block)*) => {
+        $crate::on_both_backends! { with $crate::helpers::TestApp::spawn; $(async fn $name($app) $body)* }
+    };
+    (with $spawn:path; $(async fn $name:ident($app:ident) $body:block)*) => {$(
         mod $name {
             #[allow(unused_imports)]
             use super::*;
@@ -343,7 +367,7 @@ macro_rules! on_both_backends {
 
             #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
             async fn sqlite() {
-                let app = $crate::helpers::TestApp::spawn($crate::helpers::Backend::Sqlite)
+                let app = $spawn($crate::helpers::Backend::Sqlite)
                     .await
                     .expect("SQLite is always available");
                 run(app).await
@@ -351,9 +375,7 @@ macro_rules! on_both_backends {
 
             #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
             async fn postgres() {
-                if let Some(app) =
-                    $crate::helpers::TestApp::spawn($crate::helpers::Backend::Postgres).await
-                {
+                if let Some(app) = $spawn($crate::helpers::Backend::Postgres).await {
                     run(app).await
                 }
             }

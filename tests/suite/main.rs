@@ -15,6 +15,7 @@ mod diffs;
 mod engine_properties;
 mod engine_rules;
 mod evidence;
+mod faults;
 mod history_chart;
 mod openapi;
 mod pages;
