@@ -426,6 +426,9 @@ async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
     })
     .await
     .map_err(explain)?;
+    bar.set_message("tidying");
+    // The history this upload replaced goes now, not at some later start-up.
+    crate::ops::upkeep::once(&store).await;
     bar.finish_and_clear();
     println!(
         "{}: {} rows ({} added, {} replaced, {} removed); {} periods stored; sha256 {}; event {}",

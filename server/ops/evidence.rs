@@ -105,8 +105,17 @@ pub async fn upload(
     store_rows(store, by, key, mode, &parsed, &sha256, |_| {}).await
 }
 
+/// How many times a merge is built again when another upload to the same metric finished
+/// while it was being built.
+const MERGE_ATTEMPTS: usize = 3;
+
 /// Stores observations already read whole and checked, with the upload event;
 /// `progress` hears how many rows are written.
+///
+/// The rows go into a new history outside the event record's write lock, a short transaction
+/// at a time; under the lock, one small update makes it the live history, beside the event.
+/// A merge copies the periods it does not replace from the live history first, and is built
+/// again if another upload changed the live history meanwhile.
 pub async fn store_rows(
     store: &Store,
     by: Uploader<'_>,
@@ -114,29 +123,112 @@ pub async fn store_rows(
     mode: Mode,
     parsed: &[Observation],
     sha256: &str,
-    progress: impl FnMut(u64),
+    mut progress: impl FnMut(u64),
 ) -> OpResult<UploadReport> {
-    // The rows go in outside the write lock first; the move under it is one statement.
-    let staged = rows::stage(store, parsed, progress).await?;
-    let result = store_staged(store, &by, key, mode, &staged, sha256).await;
-    if let Err(e) = rows::unstage(store, &staged).await {
-        tracing::warn!(error = %e, "staged rows stay until the next upload clears them");
+    let metric = metrics::get(store, key).await?;
+    may_upload(&by, &metric)?;
+    for _ in 0..MERGE_ATTEMPTS {
+        let base = rows::live(&mut store.read().await?, metric.id).await?;
+        let building = Building::start(store, metric.id).await?;
+        let built = build(store, &building, mode, base, parsed, &mut progress).await;
+        let stored = match built {
+            Ok(copied) => {
+                let upload = Upload {
+                    key,
+                    mode,
+                    history: building.id,
+                    base,
+                    uploaded: parsed.len() as u64,
+                    copied,
+                    sha256,
+                };
+                put_live(store, &by, upload).await
+            }
+            Err(e) => Err(e),
+        };
+        match stored {
+            Ok(Some((report, retired))) => {
+                building.made_live();
+                if let Some(old) = retired {
+                    spawn_discard(store, old);
+                }
+                return Ok(report);
+            }
+            // Another upload went first: build again on its history.
+            Ok(None) => building.discard().await,
+            Err(e) => {
+                building.discard().await;
+                return Err(e);
+            }
+        }
     }
-    result
+    Err(OpError::Conflict(format!(
+        "other uploads to {key} kept changing its history while this one was written; nothing was changed, send it again"
+    )))
 }
 
-async fn store_staged(
+/// Fills the new history: the upload, then (merging) the live periods it does not replace.
+/// Returns how many were copied from the live history.
+async fn build(
+    store: &Store,
+    building: &Building,
+    mode: Mode,
+    base: Option<rows::Live>,
+    parsed: &[Observation],
+    progress: &mut impl FnMut(u64),
+) -> OpResult<u64> {
+    rows::add(store, building.id, parsed, progress).await?;
+    Ok(match (mode, base) {
+        (Mode::Merge, Some(base)) => rows::copy_missing(store, base.id, building.id).await?,
+        _ => 0,
+    })
+}
+
+/// A built history on its way to becoming live.
+struct Upload<'a> {
+    key: &'a str,
+    mode: Mode,
+    history: i64,
+    /// The live history the merge was built on.
+    base: Option<rows::Live>,
+    uploaded: u64,
+    copied: u64,
+    sha256: &'a str,
+}
+
+/// Under the write lock: checks the uploader again, swaps the new history in and records the
+/// event. `None` when a merge's base is no longer live; otherwise the report and the history
+/// that was retired.
+async fn put_live(
     store: &Store,
     by: &Uploader<'_>,
-    key: &str,
-    mode: Mode,
-    staged: &rows::Staged,
-    sha256: &str,
-) -> OpResult<UploadReport> {
+    u: Upload<'_>,
+) -> OpResult<Option<(UploadReport, Option<i64>)>> {
     let mut w = store.begin_write().await?;
-    let metric = metrics::get_for_update(&mut w, key).await?;
+    let metric = metrics::get_for_update(&mut w, u.key).await?;
     may_upload(by, &metric)?;
-    let written: Written = rows::write_staged(&mut w, metric.id, mode, staged).await?;
+    let before = rows::live(w.conn(), metric.id).await?;
+    let written = match u.mode {
+        Mode::Merge => {
+            if before.map(|l| l.id) != u.base.map(|l| l.id) {
+                return Ok(None);
+            }
+            let replaced = before.map_or(0, |l| l.rows) - u.copied;
+            Written {
+                added: u.uploaded - replaced,
+                replaced,
+                removed: 0,
+                total: u.uploaded + u.copied,
+            }
+        }
+        Mode::Replace => Written {
+            added: u.uploaded,
+            replaced: 0,
+            removed: before.map_or(0, |l| l.rows),
+            total: u.uploaded,
+        },
+    };
+    rows::put_live(&mut w, metric.id, u.history, written.total).await?;
     let actor = match by {
         Uploader::User(u) => Actor::User(u.username.clone()),
         Uploader::Cli => Actor::Cli,
@@ -147,9 +239,9 @@ async fn store_staged(
             "observations.uploaded",
             &metric.subject(),
             serde_json::json!({
-                "mode": mode.as_str(),
-                "rows": staged.rows,
-                "sha256": sha256,
+                "mode": u.mode.as_str(),
+                "rows": u.uploaded,
+                "sha256": u.sha256,
                 "added": written.added,
                 "replaced": written.replaced,
                 "removed": written.removed,
@@ -158,17 +250,68 @@ async fn store_staged(
         )
         .await?;
     w.commit().await?;
-    Ok(UploadReport {
+    let report = UploadReport {
         metric: metric.key.to_string(),
-        mode,
-        rows: staged.rows,
+        mode: u.mode,
+        rows: u.uploaded,
         added: written.added,
         replaced: written.replaced,
         removed: written.removed,
         total: written.total,
-        sha256: sha256.to_string(),
+        sha256: u.sha256.to_string(),
         event_seq,
-    })
+    };
+    Ok(Some((report, before.map(|l| l.id))))
+}
+
+/// A history being built. Unless it was made live, it is deleted: at once on an error, and
+/// in the background when the upload is dropped half way (its client went away).
+struct Building {
+    store: Store,
+    id: i64,
+    settled: bool,
+}
+
+impl Building {
+    async fn start(store: &Store, metric_id: i64) -> OpResult<Building> {
+        Ok(Building {
+            store: store.clone(),
+            id: rows::start(store, metric_id).await?,
+            settled: false,
+        })
+    }
+
+    fn made_live(mut self) {
+        self.settled = true;
+    }
+
+    async fn discard(mut self) {
+        self.settled = true;
+        if let Err(e) = rows::discard(&self.store, self.id).await {
+            tracing::warn!(error = %e, history = self.id, "an unfinished upload stays until the next sweep");
+        }
+    }
+}
+
+impl Drop for Building {
+    fn drop(&mut self) {
+        if !self.settled {
+            spawn_discard(&self.store, self.id);
+        }
+    }
+}
+
+/// Deletes a history that is not live, in the background (a sweep catches it otherwise).
+fn spawn_discard(store: &Store, history: i64) {
+    let Ok(runtime) = tokio::runtime::Handle::try_current() else {
+        return;
+    };
+    let store = store.clone();
+    runtime.spawn(async move {
+        if let Err(e) = rows::discard(&store, history).await {
+            tracing::warn!(error = %e, history, "a history that is not live stays until the next sweep");
+        }
+    });
 }
 
 /// The window of history a request looks at: `from` inclusive, `to` exclusive.

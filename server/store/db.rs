@@ -113,10 +113,16 @@ pub(super) fn means_gone(e: &sqlx::Error) -> bool {
         | sqlx::Error::PoolClosed
         | sqlx::Error::WorkerCrashed => true,
         sqlx::Error::Database(db) => db.code().is_some_and(|code| {
-            (code.starts_with("57") && code != "57014") || code.starts_with("08")
+            is_sqlstate(&code)
+                && ((code.starts_with("57") && code != "57014") || code.starts_with("08"))
         }),
         _ => false,
     }
+}
+
+/// PostgreSQL reports five-character SQLSTATEs; SQLite's result codes are shorter numbers.
+pub(super) fn is_sqlstate(code: &str) -> bool {
+    code.len() == 5
 }
 
 /// The error a statement gets when the database sent nothing for too long.

@@ -93,11 +93,13 @@ impl From<sqlx::Error> for StoreError {
 /// cancellation (57014), a lock that was not available (55P03), and a serialisation failure
 /// or deadlock (class 40), each of which a later attempt may pass.
 fn is_busy(code: Option<&str>) -> bool {
-    let Some(code) = code else { return false };
-    if let Ok(n) = code.parse::<i64>() {
-        return matches!(n & 0xff, 5 | 6);
+    match code {
+        Some(state) if db::is_sqlstate(state) => {
+            state == "57014" || state == "55P03" || state.starts_with("40")
+        }
+        Some(code) => code.parse::<i64>().is_ok_and(|n| matches!(n & 0xff, 5 | 6)),
+        None => false,
     }
-    code == "57014" || code == "55P03" || code.starts_with("40")
 }
 
 impl StoreError {

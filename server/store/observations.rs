@@ -1,16 +1,24 @@
-//! Each metric's history: one value per period start. Written in the caller's transaction, so
-//! an upload and its event land together or not at all.
+//! Each metric's history: one value per period start, kept in histories of which one per
+//! metric is live (migrations/*/0006_histories.sql).
+//!
+//! An upload never writes into the live history. It builds a new one in short transactions
+//! ([`add`], [`copy_missing`]), then [`put_live`] swaps it in with one small update inside the
+//! upload's write transaction, beside its event. Retired histories and histories whose upload
+//! died are deleted by [`sweep`], also a short transaction at a time. So other writers never
+//! wait for more than one short transaction of an upload, whatever its size, and rows of a
+//! failed upload neither linger nor slow later uploads (each history is its own key range).
 
 use sqlx::Row;
 
-use super::Db;
-
-use super::{StoreResult, WriteTx};
+use super::{Db, Store, StoreError, StoreResult, WriteTx};
 use crate::domain::Timestamp;
 use crate::domain::observations::Observation;
 
 /// Rows per INSERT statement: 3 parameters each, well under both databases' limits.
-const CHUNK: usize = 1000;
+const ROWS_PER_STATEMENT: usize = 1000;
+/// Rows per short transaction while building or deleting a history: small enough that a
+/// transaction holds the write lock for a few tens of milliseconds (docs/benchmarks.md).
+pub const ROWS_PER_TRANSACTION: usize = 5000;
 
 /// How an upload meets the history already stored.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -45,124 +53,221 @@ pub struct Written {
     pub total: u64,
 }
 
-/// The number of periods stored for a metric.
-pub async fn count(conn: &mut Db, metric_id: i64) -> StoreResult<u64> {
-    let n: i64 = sqlx::query("SELECT COUNT(*) FROM observations WHERE metric_id = $1")
-        .bind(metric_id)
-        .fetch_one(&mut *conn)
-        .await?
-        .get(0);
-    Ok(n as u64)
-}
-
-/// Rows per staging transaction: few enough commits for SQLite's fsyncs, short enough that
-/// other writers get their turn in between.
-const CHUNKS_PER_TRANSACTION: usize = 20;
-
-/// An upload's rows, staged and waiting to be moved in by [`write_staged`].
-#[derive(Debug)]
-pub struct Staged {
-    upload: String,
-    /// How many rows were staged.
+/// A metric's live history: its id and how many observations it holds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Live {
+    pub id: i64,
     pub rows: u64,
 }
 
-/// Writes `rows` (distinct periods) to the staging table, outside the write lock, telling
-/// `progress` how many are written. Also forgets stagings older than a day (uploads that died
-/// half way). Call [`unstage`] afterwards, whatever happened.
-pub async fn stage(
-    store: &super::Store,
+/// The live history of a metric, if it has one.
+pub async fn live(conn: &mut Db, metric_id: i64) -> StoreResult<Option<Live>> {
+    let row = sqlx::query("SELECT id, rows FROM histories WHERE metric_id = $1 AND state = 'live'")
+        .bind(metric_id)
+        .fetch_optional(&mut *conn)
+        .await?;
+    row.map(|r| {
+        Ok(Live {
+            id: r.try_get(0)?,
+            rows: r.try_get::<i64, _>(1)? as u64,
+        })
+    })
+    .transpose()
+}
+
+/// The number of periods stored for a metric.
+pub async fn count(conn: &mut Db, metric_id: i64) -> StoreResult<u64> {
+    Ok(live(conn, metric_id).await?.map_or(0, |l| l.rows))
+}
+
+/// Starts an empty history for the metric, not yet live.
+pub async fn start(store: &Store, metric_id: i64) -> StoreResult<i64> {
+    let id: i64 = sqlx::query_scalar(
+        "INSERT INTO histories (metric_id, state, rows, touched_at) \
+         VALUES ($1, 'building', 0, $2) RETURNING id",
+    )
+    .bind(metric_id)
+    .bind(Timestamp::now())
+    .fetch_one(&mut store.unrecorded_write().await?)
+    .await?;
+    Ok(id)
+}
+
+/// Marks a history being built as still wanted; fails when the sweep has taken it as
+/// abandoned.
+async fn touch(tx: &mut Db, history: i64) -> StoreResult<()> {
+    let done =
+        sqlx::query("UPDATE histories SET touched_at = $1 WHERE id = $2 AND state = 'building'")
+            .bind(Timestamp::now())
+            .bind(history)
+            .execute(&mut *tx)
+            .await?;
+    if done.rows_affected() == 0 {
+        return Err(StoreError::Conflict(
+            "the upload stalled for so long that it was given up; nothing was changed, send it again"
+                .into(),
+        ));
+    }
+    Ok(())
+}
+
+/// Adds `rows` (distinct periods, none in the history yet) to a history being built, a short
+/// transaction at a time, telling `progress` how many are written.
+pub async fn add(
+    store: &Store,
+    history: i64,
     rows: &[Observation],
     mut progress: impl FnMut(u64),
-) -> StoreResult<Staged> {
-    let upload = crate::auth::secret::random_token("upload");
-    let now = store.now();
-    sqlx::query("DELETE FROM observation_staging WHERE created_at < $1")
-        .bind(now.plus_seconds(-86_400))
-        .execute(store.pool())
-        .await?;
+) -> StoreResult<()> {
     let mut done = 0u64;
-    for group in rows.chunks(CHUNK * CHUNKS_PER_TRANSACTION) {
-        let mut tx = store.pool().begin().await?;
-        for chunk in group.chunks(CHUNK) {
-            let mut sql = String::from(
-                "INSERT INTO observation_staging (upload, period_start, value, created_at) VALUES ",
-            );
+    for group in rows.chunks(ROWS_PER_TRANSACTION) {
+        let mut tx = store.begin_unrecorded().await?;
+        touch(&mut tx, history).await?;
+        for chunk in group.chunks(ROWS_PER_STATEMENT) {
+            let mut sql =
+                String::from("INSERT INTO observations (history_id, period_start, value) VALUES ");
             for i in 0..chunk.len() {
                 if i > 0 {
                     sql.push(',');
                 }
-                let p = 2 * i + 2;
-                sql.push_str(&format!("($1, ${}, ${}, $2)", p + 1, p + 2));
+                let p = 2 * i + 1;
+                sql.push_str(&format!("($1, ${}, ${})", p + 1, p + 2));
             }
             // Built from placeholders only; every value is bound.
-            let mut q = sqlx::query(sqlx::AssertSqlSafe(sql))
-                .bind(&upload)
-                .bind(now);
+            let mut q = sqlx::query(sqlx::AssertSqlSafe(sql)).bind(history);
             for o in chunk {
                 q = q.bind(o.period_start).bind(o.value);
             }
-            q.execute(&mut *tx).await?;
-            done += chunk.len() as u64;
-            progress(done);
+            q.execute(&mut tx).await?;
         }
         tx.commit().await?;
+        done += group.len() as u64;
+        progress(done);
     }
-    Ok(Staged {
-        upload,
-        rows: rows.len() as u64,
-    })
-}
-
-/// Removes an upload's staged rows.
-pub async fn unstage(store: &super::Store, staged: &Staged) -> StoreResult<()> {
-    sqlx::query("DELETE FROM observation_staging WHERE upload = $1")
-        .bind(&staged.upload)
-        .execute(store.pool())
-        .await?;
     Ok(())
 }
 
-/// Moves staged rows into the metric's history in `mode`, inside the write transaction: one
-/// statement, so the write lock is held for the move only.
-pub async fn write_staged(
-    w: &mut WriteTx,
-    metric_id: i64,
-    mode: Mode,
-    staged: &Staged,
-) -> StoreResult<Written> {
-    let before = count(w.conn(), metric_id).await?;
-    if mode == Mode::Replace {
-        sqlx::query("DELETE FROM observations WHERE metric_id = $1")
-            .bind(metric_id)
-            .execute(w.conn())
-            .await?;
+/// Copies into history `to` the observations of history `from` whose period `to` does not
+/// have, a short transaction at a time; returns how many were copied.
+pub async fn copy_missing(store: &Store, from: i64, to: i64) -> StoreResult<u64> {
+    let mut after = String::new();
+    let mut copied = 0;
+    loop {
+        let mut tx = store.begin_unrecorded().await?;
+        touch(&mut tx, to).await?;
+        // The last period of this step: ROWS_PER_TRANSACTION rows on, or the end.
+        let last: Option<String> = sqlx::query_scalar(
+            "SELECT period_start FROM observations WHERE history_id = $1 AND period_start > $2 \
+             ORDER BY period_start LIMIT 1 OFFSET $3",
+        )
+        .bind(from)
+        .bind(&after)
+        .bind(ROWS_PER_TRANSACTION as i64 - 1)
+        .fetch_optional(&mut tx)
+        .await?;
+        let step = sqlx::query(
+            "INSERT INTO observations (history_id, period_start, value) \
+             SELECT $1, period_start, value FROM observations \
+             WHERE history_id = $2 AND period_start > $3 AND ($4 = '' OR period_start <= $4) \
+             ON CONFLICT (history_id, period_start) DO NOTHING",
+        )
+        .bind(to)
+        .bind(from)
+        .bind(&after)
+        .bind(last.as_deref().unwrap_or(""))
+        .execute(&mut tx)
+        .await?;
+        tx.commit().await?;
+        copied += step.rows_affected();
+        match last {
+            Some(last) => after = last,
+            None => return Ok(copied),
+        }
     }
-    sqlx::query(
-        "INSERT INTO observations (metric_id, period_start, value) \
-         SELECT $1, period_start, value FROM observation_staging WHERE upload = $2 \
-         ON CONFLICT (metric_id, period_start) DO UPDATE SET value = excluded.value",
+}
+
+/// Inside the upload's write transaction: makes history `new` (holding `rows` observations)
+/// the metric's live one and retires the one before.
+pub async fn put_live(w: &mut WriteTx, metric_id: i64, new: i64, rows: u64) -> StoreResult<()> {
+    let now = w.now();
+    sqlx::query("UPDATE histories SET state = 'retired', touched_at = $1 WHERE metric_id = $2 AND state = 'live'")
+        .bind(now)
+        .bind(metric_id)
+        .execute(w.conn())
+        .await?;
+    let done = sqlx::query(
+        "UPDATE histories SET state = 'live', rows = $1, touched_at = $2 \
+         WHERE id = $3 AND state = 'building'",
     )
-    .bind(metric_id)
-    .bind(&staged.upload)
+    .bind(rows as i64)
+    .bind(now)
+    .bind(new)
     .execute(w.conn())
     .await?;
-    let total = count(w.conn(), metric_id).await?;
-    let uploaded = staged.rows;
-    Ok(match mode {
-        Mode::Merge => Written {
-            added: total - before,
-            replaced: uploaded - (total - before),
-            removed: 0,
-            total,
-        },
-        Mode::Replace => Written {
-            added: uploaded,
-            replaced: 0,
-            removed: before,
-            total,
-        },
-    })
+    if done.rows_affected() == 0 {
+        return Err(StoreError::Conflict(
+            "the upload stalled for so long that it was given up; nothing was changed, send it again"
+                .into(),
+        ));
+    }
+    Ok(())
+}
+
+/// Deletes one history that is not live, a short transaction at a time.
+pub async fn discard(store: &Store, history: i64) -> StoreResult<u64> {
+    let mut deleted = 0;
+    loop {
+        let mut tx = store.begin_unrecorded().await?;
+        let step = sqlx::query(
+            "DELETE FROM observations WHERE history_id = $1 AND period_start IN \
+             (SELECT period_start FROM observations WHERE history_id = $1 \
+              ORDER BY period_start LIMIT $2)",
+        )
+        .bind(history)
+        .bind(ROWS_PER_TRANSACTION as i64)
+        .execute(&mut tx)
+        .await?;
+        deleted += step.rows_affected();
+        if step.rows_affected() == 0 {
+            sqlx::query("DELETE FROM histories WHERE id = $1 AND state <> 'live'")
+                .bind(history)
+                .execute(&mut tx)
+                .await?;
+        }
+        tx.commit().await?;
+        if step.rows_affected() == 0 {
+            return Ok(deleted);
+        }
+    }
+}
+
+/// Deletes retired histories and those whose upload stopped writing before `abandoned`;
+/// returns how many observations went.
+pub async fn sweep(store: &Store, abandoned: Timestamp) -> StoreResult<u64> {
+    let ids: Vec<i64> = sqlx::query_scalar(
+        "SELECT id FROM histories WHERE state = 'retired' \
+         OR (state = 'building' AND touched_at < $1) ORDER BY id",
+    )
+    .bind(abandoned)
+    .fetch_all(&mut store.read().await?)
+    .await?;
+    let mut deleted = 0;
+    for id in ids {
+        deleted += discard(store, id).await?;
+    }
+    Ok(deleted)
+}
+
+/// Observations in histories that are not live (retired, or still being built), for tests
+/// and the operator's view of what a sweep would remove.
+pub async fn not_live(store: &Store) -> StoreResult<u64> {
+    let n: i64 = sqlx::query_scalar(
+        "SELECT COUNT(*) FROM observations o JOIN histories h ON h.id = o.history_id \
+         WHERE h.state <> 'live'",
+    )
+    .fetch_one(&mut store.read().await?)
+    .await?;
+    Ok(n as u64)
 }
 
 /// A metric's history from `from` (inclusive) to `to` (exclusive), oldest first.
@@ -172,8 +277,10 @@ pub async fn list(
     from: Option<Timestamp>,
     to: Option<Timestamp>,
 ) -> StoreResult<Vec<Observation>> {
+    // One statement, so it reads one history even while an upload swaps another in.
     let rows = sqlx::query(
-        "SELECT period_start, value FROM observations WHERE metric_id = $1 \
+        "SELECT period_start, value FROM observations WHERE history_id = \
+         (SELECT id FROM histories WHERE metric_id = $1 AND state = 'live') \
          AND ($2 = '' OR period_start >= $2) AND ($3 = '' OR period_start < $3) \
          ORDER BY period_start",
     )

@@ -199,3 +199,152 @@ crate::on_both_backends! { with TestApp::spawn_impatient;
         assert!(seen.as_str() > cutpoints::domain::Timestamp::now().plus_seconds(-600).to_string().as_str());
     }
 }
+
+/// `n` hourly periods starting `first` hours after 2000-01-01, as upload CSV.
+fn hourly_csv(first: i64, n: i64, value: f64) -> String {
+    let start = chrono::NaiveDate::from_ymd_opt(2000, 1, 1)
+        .unwrap()
+        .and_hms_opt(0, 0, 0)
+        .unwrap();
+    let mut s = String::with_capacity(n as usize * 32);
+    for i in first..first + n {
+        let t = start + chrono::Duration::hours(i);
+        s.push_str(&format!("{}Z,{value}\n", t.format("%Y-%m-%dT%H:%M:%S")));
+    }
+    s
+}
+
+async fn upload_csv(team: &Team, mode: &str, body: String) -> (u16, Value) {
+    let (status, _, body) = send(
+        team.app
+            .http
+            .post(team.app.url(&format!(
+                "/api/v1/metrics/{METRIC}/observations?mode={mode}"
+            )))
+            .bearer_auth(team.token_of("tomas"))
+            .header("content-type", "text/csv")
+            .body(body),
+    )
+    .await;
+    (status, body)
+}
+
+/// Observations in histories that are not live, after a round of upkeep.
+async fn leftovers(app: &TestApp) -> u64 {
+    cutpoints::ops::upkeep::once(&app.store).await;
+    cutpoints::store::observations::not_live(&app.store)
+        .await
+        .unwrap()
+}
+
+crate::on_both_backends! {
+    async fn an_upload_whose_client_goes_away_leaves_no_rows_behind(app) {
+        let team = Team::new(app).await;
+        let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 10, 1.0)).await;
+        assert_eq!(status, 200, "{body}");
+        let events_before = team.app.event_count().await;
+        let csv = hourly_csv(0, 1_000_000, 2.0);
+        let head = format!(
+            "POST /api/v1/metrics/{METRIC}/observations?mode=replace HTTP/1.1\r\nHost: test\r\n\
+             Authorization: Bearer {}\r\nContent-Type: text/csv\r\nContent-Length: {}\r\n\r\n",
+            team.token_of("tomas"),
+            csv.len()
+        );
+        let addr = team.app.base.trim_start_matches("http://").to_string();
+        let mut stream = tokio::net::TcpStream::connect(addr).await.unwrap();
+        use tokio::io::AsyncWriteExt;
+        stream.write_all(head.as_bytes()).await.unwrap();
+        stream.write_all(csv.as_bytes()).await.unwrap();
+        stream.flush().await.unwrap();
+        // Hang up once the server is writing the new history.
+        let mut polls = 0;
+        while sqlx::query_scalar::<_, i64>("SELECT COUNT(*) FROM histories WHERE state = 'building'")
+            .fetch_one(team.app.store.pool()).await.unwrap() == 0
+        {
+            polls += 1;
+            assert!(polls < 6000, "the upload never started writing");
+            tokio::time::sleep(std::time::Duration::from_millis(5)).await;
+        }
+        drop(stream);
+        // Whatever the server had done when it noticed, nothing of the upload may stay
+        // outside the live history, and the live history is the one before.
+        let mut waited = 0;
+        loop {
+            let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
+            let building: i64 = sqlx::query_scalar("SELECT COUNT(*) FROM histories WHERE state = 'building'")
+                .fetch_one(team.app.store.pool()).await.unwrap();
+            if building == 0 && leftovers(&team.app).await == 0 {
+                assert_eq!(listed["observations"].as_array().unwrap().len(), 10, "the live history is the earlier one");
+                break;
+            }
+            waited += 1;
+            assert!(waited < 600, "the abandoned upload was never cleared");
+            tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+        }
+        assert_eq!(team.app.event_count().await, events_before);
+    }
+}
+
+crate::on_both_backends! { with TestApp::spawn_impatient;
+    async fn a_large_upload_leaves_other_writers_served(app) {
+        let team = Team::new(app).await;
+        let (status, p) = team.propose("tomas", hib(40.0, 60.0, 80.0, 90.0, "first")).await;
+        assert_eq!(status, 201, "{p}");
+        let id = p["id"].as_i64().unwrap();
+        let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 1000, 1.0)).await;
+        assert_eq!(status, 200, "{body}");
+
+        // A replace upload of 400,000 rows while others comment, one after another, with a
+        // database timeout of one second: every comment is taken, because the upload holds
+        // the write lock a short transaction at a time.
+        let csv = hourly_csv(0, 400_000, 3.0);
+        let upload = {
+            let req = team
+                .app
+                .http
+                .post(team.app.url(&format!("/api/v1/metrics/{METRIC}/observations?mode=replace")))
+                .bearer_auth(team.token_of("tomas"))
+                .header("content-type", "text/csv")
+                .body(csv);
+            tokio::spawn(send(req))
+        };
+        let mut comments = 0;
+        while !upload.is_finished() {
+            let (status, body) = team
+                .act("hana", id, "comments", Some(json!({"body": format!("during the upload {comments}")})))
+                .await;
+            assert_eq!(status, 201, "a writer was refused during the upload: {body}");
+            comments += 1;
+        }
+        let (status, _, body) = upload.await.unwrap();
+        assert_eq!(status, 200, "{body}");
+        assert!(comments > 0, "the upload ran while others wrote");
+        assert_eq!((body["removed"].as_u64(), body["total"].as_u64()), (Some(1000), Some(400_000)));
+        assert_eq!(team.get(id).await["comments"].as_array().unwrap().len(), comments);
+        assert_eq!(leftovers(&team.app).await, 0);
+    }
+
+    async fn concurrent_merges_into_one_history_keep_every_period(app) {
+        let team = Team::new(app).await;
+        let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 1000, 1.0)).await;
+        assert_eq!(status, 200, "{body}");
+        // Two merges at once, overlapping in periods 2,000 to 2,999.
+        let a = hourly_csv(1000, 2000, 2.0);
+        let b = hourly_csv(2000, 2000, 3.0);
+        let (ra, rb) = tokio::join!(upload_csv(&team, "merge", a), upload_csv(&team, "merge", b));
+        assert_eq!(ra.0, 200, "{}", ra.1);
+        assert_eq!(rb.0, 200, "{}", rb.1);
+        let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
+        let values: Vec<f64> = listed["observations"].as_array().unwrap().iter().map(|o| o["value"].as_f64().unwrap()).collect();
+        assert_eq!(values.len(), 4000, "no period is lost");
+        assert!(values[..1000].iter().all(|v| *v == 1.0));
+        assert!(values[1000..2000].iter().all(|v| *v == 2.0));
+        assert!(values[3000..].iter().all(|v| *v == 3.0));
+        // The overlap holds the values of whichever upload was recorded last.
+        let last = if ra.1["event_seq"].as_i64() > rb.1["event_seq"].as_i64() { 2.0 } else { 3.0 };
+        assert!(values[2000..3000].iter().all(|v| *v == last));
+        let totals = [ra.1["total"].as_u64().unwrap(), rb.1["total"].as_u64().unwrap()];
+        assert!(totals.contains(&4000), "{totals:?}");
+        assert_eq!(leftovers(&team.app).await, 0);
+    }
+}
