@@ -3,6 +3,7 @@
 //! the construction so anyone can re-verify an export with their own tools.
 
 pub mod chain;
+pub mod replay;
 
 pub use chain::{
     Break, Entry, Event, EventParts, GENESIS_HASH, Verifier, canonical_event, canonical_parts,

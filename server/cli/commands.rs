@@ -472,16 +472,24 @@ async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
         .transpose()
         .map_err(|e| anyhow::anyhow!("--known-head {e}"))?;
     let store = Store::open_with(&db.database_url, db.settings()).await?;
-    match crate::store::events::verify(&store, known).await? {
-        Ok((count, head)) => {
-            println!("ok {count} {head}");
-            Ok(ExitCode::SUCCESS)
-        }
-        Err(broken) => {
-            eprintln!("the event record does not verify: {broken}");
-            Ok(ExitCode::from(1))
-        }
+    let v = crate::ops::audit::Verification::from_finding(
+        crate::store::audited::check(&store, known).await?,
+    );
+    if v.ok {
+        println!("{}", v.line);
+        return Ok(ExitCode::SUCCESS);
     }
+    eprintln!("the event record does not verify: {}", v.line);
+    for d in v.differences.iter().skip(1) {
+        eprintln!("  {d}");
+    }
+    if v.difference_count > v.differences.len() {
+        eprintln!(
+            "  ... and {} more",
+            v.difference_count - v.differences.len()
+        );
+    }
+    Ok(ExitCode::from(1))
 }
 
 async fn export(args: ExportArgs) -> anyhow::Result<()> {

@@ -6,11 +6,13 @@ use serde::Serialize;
 use serde_json::Value;
 
 use super::{OpError, OpResult};
+use crate::audit::replay::Difference;
 use crate::domain::Role;
 use crate::domain::Timestamp;
 use crate::engine::changes::compare;
 use crate::engine::workflow::signoff_reasons;
 use crate::store::Store;
+use crate::store::audited::{self, Finding};
 use crate::store::events::{self, EventFilter};
 use crate::store::metrics::{self, Metric, MetricFilter};
 use crate::store::users::User;
@@ -404,30 +406,69 @@ pub struct Verification {
     pub problem: Option<String>,
     /// The text `cutpoints audit verify` prints.
     pub line: String,
+    /// Rows of the audited tables that differ from what the events say, in table order
+    /// (at most [`DIFFERENCES_SHOWN`]; `difference_count` counts them all).
+    pub differences: Vec<String>,
+    pub difference_count: usize,
 }
 
+/// Differences listed in a verification; the rest are counted.
+pub const DIFFERENCES_SHOWN: usize = 100;
+
+impl Verification {
+    /// The full check's finding, in the words every interface uses.
+    pub fn from_finding(finding: Finding) -> Verification {
+        let failed = |seq: Option<i64>, problem: String, differences: &[Difference]| Verification {
+            ok: false,
+            events: None,
+            head_hash: None,
+            seq,
+            line: problem.clone(),
+            problem: Some(problem),
+            differences: differences
+                .iter()
+                .take(DIFFERENCES_SHOWN)
+                .map(ToString::to_string)
+                .collect(),
+            difference_count: differences.len(),
+        };
+        match finding {
+            Finding::Ok { events, head } => Verification {
+                ok: true,
+                events: Some(events),
+                line: format!("ok {events} {head}"),
+                head_hash: Some(head),
+                seq: None,
+                problem: None,
+                differences: Vec::new(),
+                difference_count: 0,
+            },
+            Finding::Chain(b) => failed(Some(b.seq()), b.to_string(), &[]),
+            Finding::Unreadable(u) => failed(Some(u.seq), u.to_string(), &[]),
+            Finding::Tables { differences, .. } => {
+                let first = &differences[0];
+                let more = match differences.len() {
+                    1 => String::new(),
+                    n => format!(" ({} more differences)", n - 1),
+                };
+                failed(
+                    first.seq(),
+                    format!("the tables do not match the event record: {first}{more}"),
+                    &differences,
+                )
+            }
+        }
+    }
+}
+
+/// The full check: the hash chain, and a replay of every event against the audited tables.
 pub async fn verify(
     store: &Store,
     by: &User,
     known: Option<(i64, String)>,
 ) -> OpResult<Verification> {
     require_auditor(by)?;
-    Ok(match events::verify(store, known).await? {
-        Ok((count, head)) => Verification {
-            ok: true,
-            events: Some(count),
-            line: format!("ok {count} {head}"),
-            head_hash: Some(head),
-            seq: None,
-            problem: None,
-        },
-        Err(b) => Verification {
-            ok: false,
-            events: None,
-            head_hash: None,
-            seq: Some(b.seq()),
-            line: b.to_string(),
-            problem: Some(b.to_string()),
-        },
-    })
+    Ok(Verification::from_finding(
+        audited::check(store, known).await?,
+    ))
 }

@@ -475,10 +475,34 @@ async fn approve_if_complete(
         ..latest.content.clone()
     };
     let version_text = canonical_text(&version_content);
-    let number = versions::insert(
+    let number = versions::next_number(w, metric.id).await?;
+    records::mark_approved(w, id, number).await?;
+    let approval_seq = w
+        .record(
+            &actor_of(by),
+            "version.approved",
+            &metric.subject(),
+            json!({
+                "proposal": id,
+                "version": number,
+                "revision": latest.number,
+                "hash": latest.content_hash,
+                "approvers": approvers,
+                "signatory": signoff.map(|s| s.signer_name.clone()),
+                "effective_from": effective_from,
+                "approved_at": now,
+                "scheduled": effective_from > now,
+                "retroactive": effective_from < now,
+                "content": content_json(&version_content),
+            }),
+        )
+        .await?;
+    // The version names its approval event, whose hash the publisher checks it against.
+    versions::insert(
         w,
         &NewVersion {
             metric_id: metric.id,
+            number,
             proposal_id: id,
             revision_number: latest.number,
             revision_hash: &latest.content_hash,
@@ -488,27 +512,8 @@ async fn approve_if_complete(
             approvers: &approvers,
             signatory: signoff.map(|s| s.signer_name.as_str()),
             metric_name: &metric.name,
+            approval_seq,
         },
-    )
-    .await?;
-    records::mark_approved(w, id, number).await?;
-    w.record(
-        &actor_of(by),
-        "version.approved",
-        &metric.subject(),
-        json!({
-            "proposal": id,
-            "version": number,
-            "revision": latest.number,
-            "hash": latest.content_hash,
-            "approvers": approvers,
-            "signatory": signoff.map(|s| s.signer_name.clone()),
-            "effective_from": effective_from,
-            "approved_at": now,
-            "scheduled": effective_from > now,
-            "retroactive": effective_from < now,
-            "content": content_json(&version_content),
-        }),
     )
     .await?;
     Ok(Outcome {

@@ -40,6 +40,8 @@ pub struct SetContent {
     pub in_force_since: Option<Timestamp>,
     pub audit_head: String,
     pub metrics_without_version: Vec<String>,
+    /// Versions in force that were left out because they do not match their approval event.
+    pub withheld: Vec<super::withhold::Withheld>,
     /// Versions in force, by metric key.
     pub versions: Vec<(String, VersionRecord)>,
     /// Present only when the request named them.
@@ -137,6 +139,9 @@ pub fn document(content: &SetContent, signer: &Signer) -> Value {
         "metrics_without_version".into(),
         json!(content.metrics_without_version),
     );
+    if !content.withheld.is_empty() {
+        meta.insert("withheld".into(), json!(content.withheld));
+    }
     meta.insert("digest".into(), json!(digest_of_set(&set)));
     meta.insert("key_id".into(), json!(signer.key_id()));
     meta.insert("schema".into(), json!(SCHEMA_ID));

@@ -3,6 +3,7 @@
 
 pub mod document;
 pub mod signing;
+pub mod withhold;
 
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
@@ -29,6 +30,7 @@ pub async fn content(
     let mut in_force = versions::in_force_all(&mut conn, as_of, known_at).await?;
     // Byte order of keys, whatever the database's collation.
     in_force.sort_by(|a, b| a.0.cmp(&b.0));
+    let withheld = withhold_unapproved(&mut conn, &mut in_force).await?;
     let keys: std::collections::HashSet<&str> = in_force.iter().map(|(k, _)| k.as_str()).collect();
     // The set is a function of its revision: metrics without a version are those that
     // existed when the revision took effect.
@@ -45,19 +47,46 @@ pub async fn content(
         None => crate::audit::GENESIS_HASH.to_string(),
     };
     without.sort();
+    let mut withheld = withheld;
     if let Some(key) = only {
         in_force.retain(|(k, _)| k == key);
         without.retain(|k| k == key);
+        withheld.retain(|w| w.metric == key);
     }
     Ok(SetContent {
         set_revision,
         in_force_since,
         audit_head,
         metrics_without_version: without,
+        withheld,
         versions: in_force,
         as_of: requested.0,
         known_at: requested.1,
     })
+}
+
+/// Takes out of `in_force` every version that does not match the event that approved it,
+/// logging each; returns them.
+async fn withhold_unapproved(
+    conn: &mut crate::store::Db,
+    in_force: &mut Vec<(String, versions::VersionRecord)>,
+) -> StoreResult<Vec<withhold::Withheld>> {
+    let seqs: Vec<i64> = in_force.iter().map(|(_, v)| v.approval_seq).collect();
+    let approvals = events::by_seq(conn, &seqs).await?;
+    let mut withheld = Vec::new();
+    in_force.retain(|(key, v)| match withhold::check(key, v, approvals.get(&v.approval_seq)) {
+        Ok(()) => true,
+        Err(reason) => {
+            tracing::error!(metric = %key, version = v.number, %reason, "version withheld from the published set");
+            withheld.push(withhold::Withheld {
+                metric: key.clone(),
+                version: v.number,
+                reason,
+            });
+            false
+        }
+    });
+    Ok(withheld)
 }
 
 struct Cached {

@@ -113,7 +113,7 @@ pub(super) async fn append(
     Ok(event.seq)
 }
 
-fn event_from_row(row: &sqlx::any::AnyRow) -> StoreResult<Entry> {
+pub(super) fn event_from_row(row: &sqlx::any::AnyRow) -> StoreResult<Entry> {
     let payload_text: String = row.try_get("payload")?;
     Ok(Entry {
         event: Event {
@@ -196,6 +196,40 @@ pub async fn head_at(conn: &mut Db, at: Timestamp) -> StoreResult<String> {
             .fetch_optional(&mut *conn)
             .await?;
     Ok(hash.unwrap_or_else(|| GENESIS_HASH.to_string()))
+}
+
+/// Events by seq (those that exist), as (action, subject, payload text).
+pub async fn by_seq(
+    conn: &mut Db,
+    seqs: &[i64],
+) -> StoreResult<std::collections::HashMap<i64, (String, String, String)>> {
+    let mut out = std::collections::HashMap::with_capacity(seqs.len());
+    // Well under both databases' limits on bound parameters.
+    for chunk in seqs.chunks(500) {
+        let placeholders = (1..=chunk.len())
+            .map(|i| format!("${i}"))
+            .collect::<Vec<_>>()
+            .join(", ");
+        // Only numbered placeholders are spliced in; the seqs travel as bound parameters.
+        let sql = format!(
+            "SELECT seq, action, subject, payload FROM events WHERE seq IN ({placeholders})"
+        );
+        let mut q = sqlx::query(sqlx::AssertSqlSafe(sql));
+        for seq in chunk {
+            q = q.bind(*seq);
+        }
+        for row in q.fetch_all(&mut *conn).await? {
+            out.insert(
+                row.try_get("seq")?,
+                (
+                    row.try_get("action")?,
+                    row.try_get("subject")?,
+                    row.try_get("payload")?,
+                ),
+            );
+        }
+    }
+    Ok(out)
 }
 
 /// How many events `verify` reads at a time.

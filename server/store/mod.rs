@@ -5,6 +5,7 @@
 //! changes state goes through a [`WriteTx`], which serialises writers and appends the change's
 //! event to the event record inside the same transaction.
 
+pub mod audited;
 mod db;
 pub mod events;
 pub mod metrics;
@@ -360,6 +361,24 @@ impl Store {
             self.statement_limit(),
             self.health.clone(),
         ))
+    }
+
+    /// A read-only transaction that sees one snapshot of the database throughout, for checks
+    /// that read several tables and must not see writes made meanwhile.
+    pub async fn begin_snapshot(&self) -> StoreResult<Db> {
+        let conn = self.acquire(&self.reader).await?;
+        let begin = match self.backend {
+            // Deferred: the snapshot is taken at the first read and kept to the end (WAL).
+            Backend::Sqlite => "BEGIN",
+            Backend::Postgres => "BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY",
+        };
+        Ok(Db::begin(
+            conn,
+            Some(begin),
+            self.statement_limit(),
+            self.health.clone(),
+        )
+        .await?)
     }
 
     /// A connection for a write that the event record does not cover (sessions, sign-in

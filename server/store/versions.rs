@@ -49,6 +49,8 @@ pub struct VersionRecord {
     pub signatory: Option<String>,
     /// The metric's name when the version was approved (the published set shows it).
     pub metric_name: String,
+    /// The `version.approved` event that recorded it.
+    pub approval_seq: i64,
 }
 
 impl VersionRecord {
@@ -108,6 +110,7 @@ fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {
         canonical_text: row.try_get("canonical_text")?,
         approvers: serde_json::from_str(&approvers).unwrap_or_default(),
         signatory: row.try_get("signatory")?,
+        approval_seq: row.try_get("approval_seq")?,
         metric_name: row.try_get("metric_name")?,
     })
 }
@@ -117,7 +120,7 @@ macro_rules! select_versions {
         concat!(
             "SELECT id, metric_id, number, proposal_id, revision_number, revision_hash, direction, ",
             "cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, rationale, ",
-            "canonical_text, approvers, signatory, metric_name FROM versions ",
+            "canonical_text, approvers, signatory, metric_name, approval_seq FROM versions ",
             $rest
         )
     };
@@ -183,6 +186,8 @@ pub fn statuses(versions: &[VersionRecord], now: Timestamp) -> Vec<VersionStatus
 /// What a new version is made of.
 pub struct NewVersion<'a> {
     pub metric_id: i64,
+    /// From [`next_number`].
+    pub number: i64,
     pub proposal_id: i64,
     pub revision_number: i64,
     pub revision_hash: &'a str,
@@ -192,23 +197,30 @@ pub struct NewVersion<'a> {
     pub approvers: &'a [String],
     pub signatory: Option<&'a str>,
     pub metric_name: &'a str,
+    /// The `version.approved` event recorded for it.
+    pub approval_seq: i64,
 }
 
-/// Records a version, numbered after the metric's last; returns its number.
-pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
-    let number: i64 = sqlx::query_scalar(
+/// The number the metric's next version gets.
+pub async fn next_number(w: &mut WriteTx, metric_id: i64) -> StoreResult<i64> {
+    Ok(sqlx::query_scalar(
         "SELECT CAST(COALESCE(MAX(number), 0) + 1 AS BIGINT) FROM versions WHERE metric_id = $1",
     )
-    .bind(v.metric_id)
+    .bind(metric_id)
     .fetch_one(w.conn())
-    .await?;
+    .await?)
+}
+
+/// Records a version (never changed afterwards: the database refuses it).
+pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<()> {
+    let number = v.number;
     let [c1, c2, c3, c4] = v.content.cuts.values();
     let approved_at = w.now();
     sqlx::query(
         "INSERT INTO versions (metric_id, number, proposal_id, revision_number, revision_hash, \
          direction, cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, \
-         rationale, canonical_text, approvers, signatory, metric_name) \
-         VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19)",
+         rationale, canonical_text, approvers, signatory, metric_name, approval_seq) \
+         VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20)",
     )
     .bind(v.metric_id)
     .bind(number)
@@ -229,9 +241,10 @@ pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<i64> {
     .bind(serde_json::to_string(v.approvers).expect("names serialise"))
     .bind(v.signatory)
     .bind(v.metric_name)
+    .bind(v.approval_seq)
     .execute(w.conn())
     .await?;
-    Ok(number)
+    Ok(())
 }
 
 /// `set_revision` at `at`: how many versions, across the register, had been both approved and
@@ -281,7 +294,7 @@ pub async fn in_force_all(
         "SELECT m.key AS metric_key, v.id, v.metric_id, v.number, v.proposal_id, v.revision_number, ",
         "v.revision_hash, v.direction, v.cut_1, v.cut_2, v.cut_3, v.cut_4, v.shades, v.unit, ",
         "v.effective_from, v.approved_at, v.rationale, v.canonical_text, v.approvers, v.signatory, ",
-        "v.metric_name FROM versions v JOIN metrics m ON m.id = v.metric_id ",
+        "v.metric_name, v.approval_seq FROM versions v JOIN metrics m ON m.id = v.metric_id ",
         "WHERE v.effective_from <= $1 AND v.approved_at <= $2 AND v.number = (",
         "SELECT MAX(w.number) FROM versions w WHERE w.metric_id = v.metric_id ",
         "AND w.effective_from <= $1 AND w.approved_at <= $2) ORDER BY m.key"

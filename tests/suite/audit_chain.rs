@@ -303,9 +303,28 @@ on_both_backends! {
         exec(&app, &format!("DELETE FROM events WHERE seq > {}", total - 2)).await;
         caught.push(("cut tail, head left", verify_cli(&app, None), total, "the recorded head is seq"));
 
-        // Cut the tail and forge a new head: the chain alone cannot tell, a head held earlier can.
+        // Cut the tail and forge a new head. The chain alone cannot tell; where the cut events
+        // made rows, the replay names the first row no event accounts for any more.
         let app = with_history(backend).await.unwrap();
         let held = app.events().await.last().unwrap().clone();
+        drop_triggers(&app).await;
+        let keep = entry(&app, held.event.seq - 3).await;
+        exec(&app, &format!("DELETE FROM events WHERE seq > {}", keep.event.seq)).await;
+        exec(&app, &format!("UPDATE chain_head SET seq = {}, hash = '{}' WHERE id = 1", keep.event.seq, keep.hash)).await;
+        let (code, out, err) = verify_cli(&app, None);
+        assert_eq!((code, out.as_str()), (1, ""), "{err}");
+        assert!(err.contains("metrics row (metric m3) is in the database, but no event records it"), "{err}");
+        let known = format!("{}:{}", held.event.seq, held.hash);
+        caught.push(("cut tail, forged head", verify_cli(&app, Some(&known)), held.event.seq, "is not in the chain"));
+
+        // Where the cut events made no rows (failed sign-ins), only a head held earlier tells.
+        let app = with_history(backend).await.unwrap();
+        let browser = crate::helpers::Browser::new(&app);
+        for _ in 0..3 {
+            browser.sign_in("rosa", "not the password").await;
+        }
+        let held = app.events().await.last().unwrap().clone();
+        assert_eq!(held.event.action, "signin.failed");
         drop_triggers(&app).await;
         let keep = entry(&app, held.event.seq - 3).await;
         exec(&app, &format!("DELETE FROM events WHERE seq > {}", keep.event.seq)).await;
@@ -313,7 +332,7 @@ on_both_backends! {
         let (code, out, _) = verify_cli(&app, None);
         assert_eq!((code, out), (0, format!("ok {} {}\n", keep.event.seq, keep.hash)), "undetectable without an earlier head");
         let known = format!("{}:{}", held.event.seq, held.hash);
-        caught.push(("cut tail, forged head", verify_cli(&app, Some(&known)), held.event.seq, "is not in the chain"));
+        caught.push(("cut tail of row-less events, forged head", verify_cli(&app, Some(&known)), held.event.seq, "is not in the chain"));
 
         for (what, (code, out, err), seq, problem) in caught {
             assert_eq!(code, 1, "{what}: exit 1 ({out}{err})");

@@ -5,6 +5,7 @@ mod helpers;
 
 mod accounts;
 mod audit_chain;
+mod audit_replay;
 mod audit_storage;
 mod audit_views;
 mod bad_input;

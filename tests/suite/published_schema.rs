@@ -55,6 +55,18 @@ fn validate(docs: &[(&str, Value)]) -> Option<Vec<String>> {
     )
 }
 
+/// True when `doc` validates against the schema; a missing Python or jsonschema is reported
+/// as a skip (a failure under CI).
+pub fn validates(doc: &Value) -> bool {
+    match validate(&[("document.json", doc.clone())]) {
+        Some(lines) => lines.iter().all(|l| l.ends_with(" valid")),
+        None => {
+            missing_prerequisite("python3 with jsonschema");
+            true
+        }
+    }
+}
+
 on_both_backends! {
     async fn exports_validate_against_the_published_schema(app) {
         let team = Team::new(app).await;
