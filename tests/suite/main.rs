@@ -16,6 +16,7 @@ mod engine_properties;
 mod engine_rules;
 mod evidence;
 mod history_chart;
+mod open_redirect;
 mod openapi;
 mod pages;
 mod platform;

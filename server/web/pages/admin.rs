@@ -17,6 +17,7 @@ use crate::store::{StoreError, tokens, users};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
+use crate::web::redirect::to_same_site;
 
 fn require_admin(session: &Session) -> Result<(), PageError> {
     if session.user.roles.has(Role::Admin) {
@@ -412,11 +413,6 @@ pub async fn token_revoke(
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
     user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
     state.tokens.clear();
-    let back = form.get("back");
-    let back = if back.starts_with("/admin/") {
-        back
-    } else {
-        "/admin/tokens"
-    };
-    Ok(Redirect::to(back).into_response())
+    let back = Some(form.get("back")).filter(|b| b.starts_with("/admin/"));
+    Ok(to_same_site(back.unwrap_or(""), "/admin/tokens").into_response())
 }

@@ -1,11 +1,11 @@
 //! Signing in and out.
 
-use axum::extract::State;
+use axum::extract::{RawQuery, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Deserialize;
 
-use super::{FormFields, PageQuery, base_context, render};
+use super::{FormFields, base_context, render};
 use crate::auth::password;
 use crate::store::{Actor, sessions, throttle, users};
 use crate::web::AppState;
@@ -14,6 +14,7 @@ use crate::web::auth::{
 };
 use crate::web::error::{ApiError, PageError};
 use crate::web::extract::ClientAddr;
+use crate::web::redirect::same_site_path;
 
 /// The one message for every failed sign-in: it never tells whether the account exists, is
 /// deactivated, or only the password was wrong.
@@ -25,13 +26,19 @@ pub struct NextQuery {
     next: String,
 }
 
+/// Where sign-in leads when `next` names no path on this site.
+const DEFAULT_NEXT: &str = "/metrics";
+
 /// Only a path on this site may follow sign-in (no open redirect).
 fn safe_next(next: &str) -> &str {
-    if next.starts_with('/') && !next.starts_with("//") && !next.starts_with("/\\") {
-        next
-    } else {
-        "/metrics"
-    }
+    same_site_path(next).unwrap_or(DEFAULT_NEXT)
+}
+
+/// `next` from the query. Read leniently: whatever it holds, sign-in falls back to
+/// [`DEFAULT_NEXT`] unless it is a path on this site.
+fn next_param(query: Option<&str>) -> String {
+    let query: NextQuery = serde_urlencoded::from_str(query.unwrap_or("")).unwrap_or_default();
+    safe_next(&query.next).to_string()
 }
 
 fn signin_form(
@@ -53,9 +60,9 @@ pub async fn show(
     State(state): State<AppState>,
     MaybeSession(session): MaybeSession,
     headers: HeaderMap,
-    PageQuery(query): PageQuery<NextQuery>,
+    RawQuery(query): RawQuery,
 ) -> Response {
-    let next = safe_next(&query.next).to_string();
+    let next = next_param(query.as_deref());
     if session.is_some() {
         return Redirect::to(&next).into_response();
     }
@@ -115,6 +122,8 @@ pub async fn submit(
     };
 
     if let (true, Some((user, _))) = (verified, found) {
+        // The answer is built before the session, so nothing can fail after it is made.
+        let mut response = Redirect::to(&next).into_response();
         throttle::clear(store, throttle::Scope::Account, &username).await?;
         // A fresh session id at every sign-in (OWASP ASVS 4.0.3 §3.2.1).
         if let Some(old) = existing {
@@ -123,7 +132,6 @@ pub async fn submit(
         let (secret, _) = sessions::create(store, &user).await?;
         // Sign-ins are rare enough to sweep away sessions that can no longer be used.
         sessions::purge_expired(store).await?;
-        let mut response = Redirect::to(&next).into_response();
         response.headers_mut().append(
             header::SET_COOKIE,
             cookie_header(&state, SESSION_COOKIE, &secret, false),
