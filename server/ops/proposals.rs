@@ -592,15 +592,27 @@ pub async fn review(
     Ok(outcome)
 }
 
-/// `POST .../signoff`: a signatory signs the latest revision off, re-entering their password.
-pub async fn sign_off(
-    store: &Store,
+/// The sign-off's rule, decided in `w` on the proposal as it stands: the transaction back
+/// when the caller may sign now, with the proposal, its metric and why a sign-off is needed.
+/// A separation-of-duties refusal is recorded (and committed) as `signoff.refused`.
+async fn signoff_allowed(
+    mut w: WriteTx,
     by: &User,
     id: i64,
     revision_hash: &str,
-    password: &str,
-) -> OpResult<Outcome> {
-    // A fresh authentication, throttled like sign-in, checked before taking the write lock.
+) -> OpResult<(WriteTx, ProposalBundle, Metric, Vec<String>)> {
+    let (bundle, metric) = load(&mut w, id).await?;
+    let previous = versions::latest(w.conn(), metric.id).await?;
+    let (_, reasons) = changes_and_reasons(&bundle, previous.as_ref());
+    let d = decision(&bundle, by, revision_hash);
+    let rule = workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty());
+    let w = passed(w, rule, by, &metric, "signoff.refused", &bundle).await?;
+    Ok((w, bundle, metric, reasons))
+}
+
+/// A fresh authentication for a sign-off, throttled like sign-in and checked outside the
+/// write lock (hashing takes tens of milliseconds). A wrong password is recorded and counted.
+async fn reauthenticate(store: &Store, by: &User, id: i64, password: &str) -> OpResult<()> {
     let account = by.username.as_str();
     if let Some(until) = throttle::locked_until(store, throttle::Scope::Account, account).await? {
         throttle::count_refused(store, throttle::Scope::Account, account).await?;
@@ -617,27 +629,42 @@ pub async fn sign_off(
         tokio::task::spawn_blocking(move || crate::auth::password::verify(&plain, &hash))
             .await
             .unwrap_or(false);
-    let mut w = store.begin_write().await?;
-    if !verified {
-        throttle::count_failure(&mut w, throttle::Scope::Account, account).await?;
-        w.record(
-            &actor_of(by),
-            "signoff.password_failed",
-            &crate::store::users::subject(account),
-            json!({"proposal": id}),
-        )
-        .await?;
-        w.commit().await?;
-        return Err(OpError::BadCredentials(
-            "the password is not right; a sign-off needs your own password".into(),
-        ));
+    if verified {
+        return Ok(());
     }
-    let (bundle, metric) = load(&mut w, id).await?;
-    let d = decision(&bundle, by, revision_hash);
-    let previous = versions::latest(w.conn(), metric.id).await?;
-    let (_, reasons) = changes_and_reasons(&bundle, previous.as_ref());
-    let rule = workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty());
-    let mut w = passed(w, rule, by, &metric, "signoff.refused", &bundle).await?;
+    let mut w = store.begin_write().await?;
+    throttle::count_failure(&mut w, throttle::Scope::Account, account).await?;
+    w.record(
+        &actor_of(by),
+        "signoff.password_failed",
+        &crate::store::users::subject(account),
+        json!({"proposal": id}),
+    )
+    .await?;
+    w.commit().await?;
+    Err(OpError::BadCredentials(
+        "the password is not right; a sign-off needs your own password".into(),
+    ))
+}
+
+/// `POST .../signoff`: a signatory signs the latest revision off, re-entering their password.
+pub async fn sign_off(
+    store: &Store,
+    by: &User,
+    id: i64,
+    revision_hash: &str,
+    password: &str,
+) -> OpResult<Outcome> {
+    // Who and when come before the password: the wrong person (403) or the right person at
+    // the wrong moment (409) is refused whatever password came, so the answer tells nothing
+    // about the password, and no failed attempt is recorded or counted for someone who may
+    // not sign. This check writes nothing; committing only ends its transaction and lock.
+    let (checked, ..) = signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;
+    checked.commit().await?;
+    reauthenticate(store, by, id, password).await?;
+    // Decided again in the transaction that writes: another step may have come in between.
+    let (mut w, bundle, metric, reasons) =
+        signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;
     let latest = bundle.latest();
     records::insert_signoff(
         &mut w,

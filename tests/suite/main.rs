@@ -24,6 +24,7 @@ mod published;
 mod published_schema;
 mod register_api;
 mod serve;
+mod signoff_order;
 mod workflow_api;
 mod workflow_pages;
 mod workflow_races;
