@@ -399,6 +399,17 @@ pub fn python_json(script: &str, input: &Value, what: &str) -> Option<Value> {
     Some(serde_json::from_slice(&output.stdout).expect("the script prints JSON"))
 }
 
+/// The records of a CSV text as Python's `csv` module reads them (the reference reader).
+pub fn python_csv_rows(text: &str) -> Option<Vec<Vec<String>>> {
+    let script = "import csv, io, json, sys\nprint(json.dumps(list(csv.reader(io.StringIO(json.load(sys.stdin), newline='')))))";
+    python_json(
+        script,
+        &Value::from(text),
+        "its csv module is the reference CSV reader",
+    )
+    .map(|rows| serde_json::from_value(rows).unwrap())
+}
+
 /// The number of sessions stored.
 pub async fn session_count(app: &TestApp) -> i64 {
     sqlx::query_scalar("SELECT COUNT(*) FROM sessions")

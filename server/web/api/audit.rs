@@ -9,6 +9,7 @@ use serde::Deserialize;
 use super::metrics::KeyPath;
 use super::openapi::{AuditView, ErrorBody};
 use crate::domain::MetricKey;
+use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::{self, Extract};
 use crate::store::events::EventFilter;
 use crate::web::AppState;
@@ -109,11 +110,10 @@ fn summary_headers(x: &Extract) -> HeaderMap {
 }
 
 /// The extract as RFC 4180 CSV: a header row, one record per event (CRLF line ends, fields
-/// with commas, quotes or line breaks quoted), and a last record summarising the extract.
+/// with commas, quotes or line breaks quoted), and a last record summarising the extract. Text
+/// cells are safe for spreadsheets (`domain::csv_out`; docs/audit-chain.md says how a verifier
+/// undoes it).
 pub fn extract_csv(x: &Extract) -> Vec<u8> {
-    let mut w = csv::WriterBuilder::new()
-        .terminator(csv::Terminator::CRLF)
-        .from_writer(Vec::new());
     let header = [
         "seq",
         "at",
@@ -124,20 +124,19 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
         "prev_hash",
         "hash",
     ];
-    w.write_record(header).expect("writing to memory");
+    let mut out = CsvOut::new(&header, 400 * (x.entries.len() + 2));
     for e in &x.entries {
         let payload = serde_json_canonicalizer::to_string(&e.event.payload).expect("plain JSON");
-        w.write_record([
-            e.event.seq.to_string().as_str(),
-            &e.event.at.to_string(),
-            &e.event.actor,
-            &e.event.action,
-            &e.event.subject,
-            &payload,
-            &e.prev_hash,
-            &e.hash,
-        ])
-        .expect("writing to memory");
+        out.row(&[
+            Cell::Number(e.event.seq.to_string()),
+            Cell::Time(e.event.at),
+            Cell::Text(&e.event.actor),
+            Cell::Text(&e.event.action),
+            Cell::Text(&e.event.subject),
+            Cell::Text(&payload),
+            Cell::Text(&e.prev_hash),
+            Cell::Text(&e.hash),
+        ]);
     }
     let s = &x.summary;
     let summary = format!(
@@ -148,9 +147,18 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
         s.head_seq,
         s.head_hash
     );
-    w.write_record(["summary", "", "", "", "", &summary, "", ""])
-        .expect("writing to memory");
-    w.into_inner().expect("flushing to memory")
+    let blank = || Cell::Text("");
+    out.row(&[
+        Cell::Text("summary"),
+        blank(),
+        blank(),
+        blank(),
+        blank(),
+        Cell::Text(&summary),
+        blank(),
+        blank(),
+    ]);
+    out.finish()
 }
 
 /// `GET /api/v1/audit.csv`.
@@ -262,4 +270,64 @@ pub async fn as_of(
     )
     .await?;
     Ok(Json(view).into_response())
+}
+
+#[cfg(test)]
+mod tests {
+    use serde_json::json;
+
+    use super::extract_csv;
+    use crate::audit::{Entry, Event, chain_hash};
+    use crate::domain::Timestamp;
+    use crate::domain::csv_out::text_of_cell;
+    use crate::ops::audit::{Extract, ExtractSummary};
+
+    /// A verifier that reads the CSV removes the one quote added to text cells and gets back
+    /// the event's own bytes, so the chain still verifies.
+    #[test]
+    fn text_cells_are_neutralised_and_the_event_can_be_rebuilt() {
+        let event = Event {
+            seq: 1,
+            at: Timestamp::parse("2026-03-01T00:00:00Z").unwrap(),
+            actor: "=cmd|' /C calc'!A0".into(),
+            action: "+metric.created".into(),
+            subject: "@metric:x".into(),
+            payload: json!({"name": "=2+2", "cut": -5}),
+        };
+        let hash = chain_hash(&"0".repeat(64), &event);
+        let extract = Extract {
+            entries: vec![Entry {
+                event: event.clone(),
+                prev_hash: "0".repeat(64),
+                hash: hash.clone(),
+            }],
+            summary: ExtractSummary {
+                count: 1,
+                first_seq: Some(1),
+                last_seq: Some(1),
+                head_seq: 1,
+                head_hash: hash.clone(),
+                next_after: None,
+            },
+        };
+        let bytes = extract_csv(&extract);
+        let mut reader = csv::Reader::from_reader(bytes.as_slice());
+        let row = reader.records().next().unwrap().unwrap();
+        assert_eq!(&row[2], "'=cmd|' /C calc'!A0");
+        assert_eq!(&row[3], "'+metric.created");
+        assert_eq!(&row[4], "'@metric:x");
+        assert_eq!(
+            &row[5], r#"{"cut":-5,"name":"=2+2"}"#,
+            "an object payload is as it was"
+        );
+        let rebuilt = Event {
+            seq: row[0].parse().unwrap(),
+            at: Timestamp::parse(&row[1]).unwrap(),
+            actor: text_of_cell(&row[2]).into(),
+            action: text_of_cell(&row[3]).into(),
+            subject: text_of_cell(&row[4]).into(),
+            payload: serde_json::from_str(text_of_cell(&row[5])).unwrap(),
+        };
+        assert_eq!(chain_hash(&row[6], &rebuilt), row[7]);
+    }
 }
