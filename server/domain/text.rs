@@ -1,4 +1,8 @@
-//! Length limits on free text (DESIGN.md), counted in characters.
+//! Length limits on free text (DESIGN.md), counted in characters, and the one rule on control
+//! characters for every text field: a control character (Unicode general category Cc: the C0
+//! controls, DEL and the C1 controls) is refused wherever it stands; only multi-line fields
+//! take line breaks and tabs. Trimming removes spaces, never a control character, so one at
+//! either end is refused too rather than silently dropped.
 
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 pub enum TextError {
@@ -45,18 +49,36 @@ pub fn bounded(
     Ok(text.to_string())
 }
 
-/// A one-line field (name, unit, tag): bounded and free of control characters.
+/// True when `text` holds a control character (Unicode general category Cc).
+pub fn has_control(text: &str) -> bool {
+    text.chars().any(char::is_control)
+}
+
+/// `text` without the spaces at its ends (Unicode White_Space), leaving any control character
+/// in place for the field's rule to refuse.
+pub fn trim(text: &str) -> &str {
+    text.trim_matches(|c: char| c.is_whitespace() && !c.is_control())
+}
+
+/// Refuses a control character anywhere in a one-line text.
+pub fn no_control(field: &'static str, text: &str) -> Result<(), TextError> {
+    if has_control(text) {
+        Err(TextError::Control { field })
+    } else {
+        Ok(())
+    }
+}
+
+/// A one-line field (name, unit, tag, label, display name): bounded and free of control
+/// characters.
 pub fn single_line(
     field: &'static str,
     text: &str,
     min: usize,
     max: usize,
 ) -> Result<String, TextError> {
-    let text = text.trim();
-    if text.chars().any(char::is_control) {
-        return Err(TextError::Control { field });
-    }
-    bounded(field, text, min, max)
+    no_control(field, text)?;
+    bounded(field, trim(text), min, max)
 }
 
 /// A multi-line field (description, rationale): bounded; tabs and line breaks allowed, other
@@ -75,4 +97,43 @@ pub fn multi_line(
         return Err(TextError::Control { field });
     }
     bounded(field, text.trim_end(), min, max)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn control_characters_are_refused_wherever_they_stand() {
+        // Unicode general category Cc: C0, DEL, C1.
+        for c in [
+            '\u{0}', '\u{7}', '\u{1b}', '\u{7f}', '\u{85}', '\u{9f}', '\t', '\n',
+        ] {
+            for text in [format!("a{c}b"), format!("ab{c}"), format!("{c}ab")] {
+                assert_eq!(
+                    single_line("name", &text, 1, 10),
+                    Err(TextError::Control { field: "name" }),
+                    "{text:?}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn multi_line_text_keeps_line_breaks_and_tabs_only() {
+        assert_eq!(multi_line("note", "a\r\n\tb\n", 1, 10).unwrap(), "a\n\tb");
+        for c in ['\u{0}', '\u{7}', '\u{1b}', '\u{7f}', '\u{85}', '\r'] {
+            assert!(
+                multi_line("note", &format!("a{c}b"), 1, 10).is_err(),
+                "{c:?}"
+            );
+        }
+    }
+
+    #[test]
+    fn trimming_removes_spaces_but_not_control_characters() {
+        assert_eq!(trim(" \u{a0}x\u{3000} "), "x");
+        assert_eq!(trim(" x\u{85}"), "x\u{85}");
+        assert_eq!(trim("\tx"), "\tx");
+    }
 }

@@ -127,6 +127,11 @@ fn validate(
     Ok(content)
 }
 
+/// A revision hash named by the request, checked for its form before anything else.
+fn hash_named<'a>(field: &str, text: &'a str) -> OpResult<&'a str> {
+    crate::domain::proposal::revision_hash(field, text).map_err(|m| single(field, m))
+}
+
 fn note(text_in: &str) -> OpResult<String> {
     text::multi_line("note", text_in, 1, NOTE_MAX).map_err(|e| single("note", e.to_string()))
 }
@@ -233,15 +238,19 @@ async fn load(w: &mut WriteTx, id: i64) -> OpResult<(ProposalBundle, Metric)> {
 
 /// `PUT /api/v1/proposals/{id}`: a new revision. Earlier approvals and sign-offs become stale.
 pub async fn revise(store: &Store, by: &User, id: i64, input: &RevisionInput) -> OpResult<()> {
+    let base_hash = input
+        .base_revision_hash
+        .as_deref()
+        .filter(|h| !h.is_empty());
+    if let Some(h) = base_hash {
+        hash_named("base_revision_hash", h)?;
+    }
     let mut w = store.begin_write().await?;
     let (bundle, metric) = load(&mut w, id).await?;
     let state = bundle.proposal.state;
     workflow::may_revise(rules_actor(by, &metric), state).map_err(refusal)?;
     let latest_rev = bundle.latest();
-    if let Some(base) = input
-        .base_revision_hash
-        .as_deref()
-        .filter(|h| !h.is_empty())
+    if let Some(base) = base_hash
         && base != latest_rev.content_hash
     {
         return Err(OpError::Conflict(format!(
@@ -553,6 +562,7 @@ pub async fn review(
     revision_hash: &str,
     comment: &str,
 ) -> OpResult<Outcome> {
+    let revision_hash = hash_named("revision_hash", revision_hash)?;
     let comment = text::multi_line("comment", comment, 0, text::RATIONALE_MAX)
         .map_err(|e| single("comment", e.to_string()))?;
     let mut w = store.begin_write().await?;
@@ -655,6 +665,7 @@ pub async fn sign_off(
     revision_hash: &str,
     password: &str,
 ) -> OpResult<Outcome> {
+    let revision_hash = hash_named("revision_hash", revision_hash)?;
     // Who and when come before the password: the wrong person (403) or the right person at
     // the wrong moment (409) is refused whatever password came, so the answer tells nothing
     // about the password, and no failed attempt is recorded or counted for someone who may

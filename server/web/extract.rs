@@ -12,6 +12,8 @@ use serde::de::DeserializeOwned;
 
 use super::AppState;
 use super::error::ApiError;
+use crate::domain::metric::Problems;
+use crate::domain::text;
 
 /// A JSON body: `application/json` (415 otherwise), within the body limit (413), and a
 /// well-formed value of `T` (400 naming the field and what was wrong).
@@ -44,12 +46,21 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
             inner.classify(),
             serde_json::error::Category::Syntax | serde_json::error::Category::Eof
         );
-        let message = if syntax || path == "." || path.is_empty() {
-            format!("malformed JSON: {inner}")
-        } else {
-            format!("{path}: {inner}")
-        };
-        ApiError::new(StatusCode::BAD_REQUEST, "bad_json", message)
+        if syntax || path == "." || path.is_empty() {
+            return ApiError::new(
+                StatusCode::BAD_REQUEST,
+                "bad_json",
+                format!("malformed JSON: {inner}"),
+            );
+        }
+        ApiError {
+            fields: Some(Problems::single(&path, inner.to_string())),
+            ..ApiError::new(
+                StatusCode::BAD_REQUEST,
+                "bad_json",
+                format!("{path}: {inner}"),
+            )
+        }
     })?;
     // Anything after the value is malformed too.
     de.end().map_err(|e| {
@@ -134,6 +145,21 @@ impl<T: DeserializeOwned> FromRequest<AppState> for ApiJson<T> {
     }
 }
 
+/// Every query parameter is a one-line text: one holding a control character (after
+/// percent-decoding) answers 400 naming it, before anything is read or looked up.
+pub fn refuse_controls_in_query(query: &str) -> Result<(), ApiError> {
+    let pairs: Vec<(String, String)> = serde_urlencoded::from_str(query).unwrap_or_default();
+    let Some((name, _)) = pairs
+        .iter()
+        .find(|(name, value)| text::has_control(name) || text::has_control(value))
+    else {
+        return Ok(());
+    };
+    let name = name.escape_debug().to_string();
+    let message = format!("{name} must not contain control characters");
+    Err(ApiError::bad_param(name, message))
+}
+
 /// Query parameters as `T`; a malformed query answers 400 in JSON.
 pub struct ApiQuery<T>(pub T);
 
@@ -142,6 +168,7 @@ impl<T: DeserializeOwned> FromRequestParts<AppState> for ApiQuery<T> {
 
     async fn from_request_parts(parts: &mut Parts, _: &AppState) -> Result<Self, Self::Rejection> {
         let query = parts.uri.query().unwrap_or("");
+        refuse_controls_in_query(query)?;
         serde_urlencoded::from_str(query)
             .map(ApiQuery)
             .map_err(|e| ApiError::bad_request(format!("bad query parameter: {e}")))
@@ -192,5 +219,5 @@ pub fn time_param(name: &str, text: &str) -> Result<Option<crate::domain::Timest
     }
     crate::domain::Timestamp::parse(text)
         .map(Some)
-        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
+        .map_err(|e| ApiError::bad_param(name, format!("{name}: {e}")))
 }

@@ -10,6 +10,7 @@ mod audit_views;
 mod bad_input;
 mod browser;
 mod cli;
+mod control_characters;
 mod csv_injection;
 mod demo_data;
 mod diffs;

@@ -7,6 +7,7 @@ use serde::Deserialize;
 
 use super::{FormFields, base_context, render};
 use crate::auth::password;
+use crate::domain::text;
 use crate::store::{Actor, sessions, throttle, users};
 use crate::web::AppState;
 use crate::web::auth::{
@@ -90,9 +91,21 @@ pub async fn submit(
     form: FormFields,
 ) -> Result<Response, PageError> {
     let store = &state.store;
-    let username = form.get("username").trim().to_lowercase();
     let next = safe_next(form.get("next")).to_string();
     let csrf = read_cookie(&headers, SIGNIN_COOKIE).unwrap_or_default();
+    // No account's name holds a control character; such a request is malformed, not a
+    // failed sign-in, and never reaches the database.
+    if let Err(e) = text::no_control("username", form.get("username")) {
+        let message = e.to_string();
+        return Ok(signin_form(
+            &csrf,
+            &next,
+            "",
+            Some(&message),
+            StatusCode::BAD_REQUEST,
+        ));
+    }
+    let username = text::trim(form.get("username")).to_lowercase();
 
     // Throttled subjects are refused before any password is checked.
     let account_lock = throttle::locked_until(store, throttle::Scope::Account, &username).await?;
