@@ -2,6 +2,7 @@
 //! the layers above never check the same thing twice.
 
 pub mod csv_out;
+pub mod json_errors;
 pub mod key;
 pub mod metric;
 pub mod number;

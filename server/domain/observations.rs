@@ -265,7 +265,10 @@ pub fn from_json_bytes(bytes: &[u8]) -> Result<Vec<Observation>, Vec<RowProblem>
         Err(e) => Err(vec![RowProblem {
             line: Some(e.line() as u64),
             item: None,
-            reason: format!("not JSON of the expected shape: {e}"),
+            reason: format!(
+                "not JSON of the expected shape: {}",
+                super::json_errors::describe(&e)
+            ),
         }]),
     }
 }

@@ -8,6 +8,7 @@ mod audit_chain;
 mod audit_storage;
 mod audit_views;
 mod bad_input;
+mod body_messages;
 mod browser;
 mod cli;
 mod control_characters;
