@@ -234,3 +234,100 @@ on_both_backends! {
         assert_eq!(team.app.event_count().await, events, "nothing was stored");
     }
 }
+
+/// The wording itself (`domain::json_errors`), on the reader's own errors.
+mod wording {
+    use std::collections::BTreeMap;
+
+    use serde::Deserialize;
+
+    use cutpoints::domain::json_errors::describe;
+
+    #[derive(Debug, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    #[allow(dead_code)]
+    struct Body {
+        name: String,
+        count: Option<i64>,
+        cuts: BTreeMap<String, f64>,
+        tags: Vec<String>,
+        flag: bool,
+        mood: Mood,
+    }
+
+    #[derive(Debug, Deserialize)]
+    #[serde(rename_all = "snake_case")]
+    enum Mood {
+        Calm,
+        Busy,
+    }
+
+    fn message(json: &str) -> String {
+        describe(&serde_json::from_str::<Body>(json).unwrap_err())
+    }
+
+    fn body_with(field: &str, value: &str) -> String {
+        let mut fields = BTreeMap::from([
+            ("name", r#""n""#),
+            ("count", "1"),
+            ("cuts", "{}"),
+            ("tags", "[]"),
+            ("flag", "true"),
+            ("mood", r#""calm""#),
+        ]);
+        fields.insert(field, value);
+        let inner: Vec<String> = fields.iter().map(|(k, v)| format!("\"{k}\":{v}")).collect();
+        format!("{{{}}}", inner.join(","))
+    }
+
+    #[test]
+    fn wrong_types_are_named_as_json_types() {
+        for (field, value, says) in [
+            ("name", "5", "expected a string, got the number 5"),
+            (
+                "count",
+                "1.5",
+                "expected a whole number, got the number 1.5",
+            ),
+            (
+                "count",
+                r#""7""#,
+                r#"expected a whole number, got the string "7""#,
+            ),
+            ("cuts", "[1]", "expected a JSON object, got an array"),
+            (
+                "cuts",
+                r#"{"a":"x"}"#,
+                r#"expected a number, got the string "x""#,
+            ),
+            (
+                "tags",
+                r#""a""#,
+                r#"expected a JSON array, got the string "a""#,
+            ),
+            ("tags", "[null]", "expected a string, got null"),
+            ("flag", "1", "expected true or false, got the number 1"),
+            (
+                "mood",
+                r#""angry""#,
+                r#"unknown value "angry": expected "calm" or "busy""#,
+            ),
+        ] {
+            assert_eq!(message(&body_with(field, value)), says, "{field}: {value}");
+        }
+    }
+
+    #[test]
+    fn an_array_instead_of_an_object_is_named_so() {
+        assert_eq!(message("[1, 2]"), "expected a string, got the number 1");
+        assert_eq!(message(r#"["n"]"#), "expected a JSON object, got an array");
+        assert_eq!(message("5"), "expected a JSON object, got the number 5");
+    }
+
+    #[test]
+    fn other_messages_are_kept_without_position() {
+        assert_eq!(message(r#"{"name": "#), "EOF while parsing a value");
+        assert!(message(r#"{"colour": 1}"#).starts_with("unknown field `colour`, expected one of"));
+        assert_eq!(message(r#"{"name": "n"}"#), "missing field `cuts`");
+    }
+}

@@ -546,3 +546,42 @@ on_both_backends! {
 fn team_url(app: &crate::helpers::TestApp) -> String {
     app.store_url.clone()
 }
+
+/// The rule itself (`domain::text`), without a server.
+mod rule {
+    use cutpoints::domain::text::{TextError, multi_line, single_line, trim};
+
+    #[test]
+    fn control_characters_are_refused_wherever_they_stand() {
+        // Unicode general category Cc: C0, DEL, C1.
+        for c in [
+            '\u{0}', '\u{7}', '\u{1b}', '\u{7f}', '\u{85}', '\u{9f}', '\t', '\n',
+        ] {
+            for text in [format!("a{c}b"), format!("ab{c}"), format!("{c}ab")] {
+                assert_eq!(
+                    single_line("name", &text, 1, 10),
+                    Err(TextError::Control { field: "name" }),
+                    "{text:?}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn multi_line_text_keeps_line_breaks_and_tabs_only() {
+        assert_eq!(multi_line("note", "a\r\n\tb\n", 1, 10).unwrap(), "a\n\tb");
+        for c in ['\u{0}', '\u{7}', '\u{1b}', '\u{7f}', '\u{85}', '\r'] {
+            assert!(
+                multi_line("note", &format!("a{c}b"), 1, 10).is_err(),
+                "{c:?}"
+            );
+        }
+    }
+
+    #[test]
+    fn trimming_removes_spaces_but_not_control_characters() {
+        assert_eq!(trim(" \u{a0}x\u{3000} "), "x");
+        assert_eq!(trim(" x\u{85}"), "x\u{85}");
+        assert_eq!(trim("\tx"), "\tx");
+    }
+}

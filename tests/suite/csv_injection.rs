@@ -147,3 +147,128 @@ on_both_backends! {
         assert_eq!(download(&team, &format!("{path}.csv")).await, csv);
     }
 }
+
+/// The one writer every CSV goes through, without a server.
+mod writer {
+    use cutpoints::domain::Timestamp;
+    use cutpoints::domain::csv_out::{Cell, CsvOut, text_cell, text_of_cell};
+
+    #[test]
+    fn text_that_a_spreadsheet_would_run_gets_a_quote_in_front() {
+        // OWASP "CSV Injection": cells beginning with = + - @ tab or carriage return.
+        for (text, written) in [
+            ("=2+2", "'=2+2"),
+            (
+                "=HYPERLINK(\"http://evil.example\",\"click\")",
+                "'=HYPERLINK(\"http://evil.example\",\"click\")",
+            ),
+            ("+1", "'+1"),
+            ("-5", "'-5"),
+            ("@SUM(A1)", "'@SUM(A1)"),
+            ("\tx", "'\tx"),
+            ("\rx", "'\rx"),
+            ("'already quoted", "''already quoted"),
+        ] {
+            assert_eq!(text_cell(text), written, "{text:?}");
+            assert_eq!(text_of_cell(&text_cell(text)), text, "undone: {text:?}");
+        }
+    }
+
+    #[test]
+    fn other_text_is_written_as_it_is() {
+        for text in [
+            "",
+            "Peak dock availability",
+            "%",
+            "a=b",
+            "1-2",
+            " =x",
+            "user:tomas",
+        ] {
+            assert_eq!(text_cell(text), text);
+            assert_eq!(text_of_cell(&text_cell(text)), text);
+        }
+    }
+
+    #[test]
+    fn numbers_and_times_are_not_text() {
+        let at = Timestamp::parse("2026-03-01T00:00:00Z").unwrap();
+        let mut out = CsvOut::new(&["name", "cut", "none", "at"], 0);
+        out.row(&[
+            Cell::Text("-x"),
+            Cell::number(Some(-5.0)),
+            Cell::number(None),
+            Cell::Time(at),
+        ]);
+        out.row(&[
+            Cell::Text("a,\"b\""),
+            Cell::number(Some(-1.5)),
+            Cell::Number("3".into()),
+            Cell::Time(at),
+        ]);
+        assert_eq!(
+            String::from_utf8(out.finish()).unwrap(),
+            "name,cut,none,at\r\n'-x,-5,,2026-03-01T00:00:00.000000Z\r\n\"a,\"\"b\"\"\",-1.5,3,2026-03-01T00:00:00.000000Z\r\n"
+        );
+    }
+}
+
+/// The audit export: a verifier undoes the rule and the chain still verifies.
+mod audit_export {
+    use serde_json::json;
+
+    use cutpoints::audit::{Entry, Event, chain_hash};
+    use cutpoints::domain::Timestamp;
+    use cutpoints::domain::csv_out::text_of_cell;
+    use cutpoints::ops::audit::{Extract, ExtractSummary};
+    use cutpoints::web::api::audit::extract_csv;
+
+    /// A verifier that reads the CSV removes the one quote added to text cells and gets back
+    /// the event's own bytes, so the chain still verifies.
+    #[test]
+    fn text_cells_are_neutralised_and_the_event_can_be_rebuilt() {
+        let event = Event {
+            seq: 1,
+            at: Timestamp::parse("2026-03-01T00:00:00Z").unwrap(),
+            actor: "=cmd|' /C calc'!A0".into(),
+            action: "+metric.created".into(),
+            subject: "@metric:x".into(),
+            payload: json!({"name": "=2+2", "cut": -5}),
+        };
+        let hash = chain_hash(&"0".repeat(64), &event);
+        let extract = Extract {
+            entries: vec![Entry {
+                event: event.clone(),
+                prev_hash: "0".repeat(64),
+                hash: hash.clone(),
+            }],
+            summary: ExtractSummary {
+                count: 1,
+                first_seq: Some(1),
+                last_seq: Some(1),
+                head_seq: 1,
+                head_hash: hash.clone(),
+                next_after: None,
+            },
+        };
+        let bytes = extract_csv(&extract);
+        let mut reader = csv::Reader::from_reader(bytes.as_slice());
+        let row = reader.records().next().unwrap().unwrap();
+        assert_eq!(&row[2], "'=cmd|' /C calc'!A0");
+        assert_eq!(&row[3], "'+metric.created");
+        assert_eq!(&row[4], "'@metric:x");
+        assert_eq!(
+            &row[5], r#"{"cut":-5,"name":"=2+2"}"#,
+            "an object payload is as it was"
+        );
+        let rebuilt = Event {
+            seq: row[0].parse().unwrap(),
+            at: Timestamp::parse(&row[1]).unwrap(),
+            actor: text_of_cell(&row[2]).into(),
+            action: text_of_cell(&row[3]).into(),
+            subject: text_of_cell(&row[4]).into(),
+            payload: serde_json::from_str(text_of_cell(&row[5])).unwrap(),
+        };
+        assert_eq!(chain_hash(&row[6], &rebuilt), row[7]);
+    }
+}

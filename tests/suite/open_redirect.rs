@@ -195,3 +195,45 @@ on_both_backends! {
         assert_same_site(&app, &answered);
     }
 }
+
+/// The rule itself, without a server.
+mod rule {
+    use cutpoints::web::redirect::same_site_path;
+
+    #[test]
+    fn paths_on_this_site_are_kept() {
+        for path in [
+            "/",
+            "/metrics",
+            "/metrics/x?y=1",
+            "/a/b#c",
+            "/%09/evil.example",
+        ] {
+            assert_eq!(same_site_path(path), Some(path), "{path:?}");
+        }
+    }
+
+    #[test]
+    fn anything_a_browser_could_read_as_another_site_is_refused() {
+        for path in [
+            "",
+            "metrics",
+            "//evil.example",
+            "/\\evil.example",
+            "\\\\evil.example",
+            "/\t/evil.example",
+            "/\n/evil.example",
+            "/\r/evil.example",
+            "/\u{0}/evil.example",
+            "/\u{b}/evil.example",
+            "/ /evil.example",
+            " //evil.example",
+            "/\u{85}/evil.example",
+            "/\u{3000}/evil.example",
+            "https://evil.example/",
+            "javascript:alert(1)",
+        ] {
+            assert_eq!(same_site_path(path), None, "{path:?}");
+        }
+    }
+}
