@@ -119,7 +119,7 @@ pub enum TagError {
 pub fn tags<S: AsRef<str>>(values: &[S]) -> Result<Vec<String>, TagError> {
     let mut out: Vec<String> = Vec::new();
     for raw in values {
-        let tag = raw.as_ref().trim().to_lowercase();
+        let tag = text::trim(raw.as_ref()).to_lowercase();
         if tag.contains(',') || text::single_line("tag", &tag, 1, text::TAG_MAX).is_err() {
             return Err(TagError::Bad(raw.as_ref().to_string()));
         }
@@ -134,9 +134,9 @@ pub fn tags<S: AsRef<str>>(values: &[S]) -> Result<Vec<String>, TagError> {
 }
 
 /// Splits a form's comma-separated list, dropping blanks.
-pub fn split_list(text: &str) -> Vec<String> {
-    text.split(',')
-        .map(str::trim)
+pub fn split_list(list: &str) -> Vec<String> {
+    list.split(',')
+        .map(text::trim)
         .filter(|s| !s.is_empty())
         .map(str::to_string)
         .collect()
@@ -146,7 +146,7 @@ pub fn split_list(text: &str) -> Vec<String> {
 pub fn owners<S: AsRef<str>>(values: &[S]) -> Result<Vec<Username>, super::people::UsernameError> {
     let mut out: Vec<Username> = Vec::new();
     for raw in values {
-        let u = Username::parse(raw.as_ref().trim())?;
+        let u = Username::parse(text::trim(raw.as_ref()))?;
         if !out.contains(&u) {
             out.push(u);
         }

@@ -1,6 +1,8 @@
 //! Validated domain types. Each is built by a parsing constructor that refuses bad input, so
 //! the layers above never check the same thing twice.
 
+pub mod csv_out;
+pub mod json_errors;
 pub mod key;
 pub mod metric;
 pub mod number;

@@ -7,6 +7,7 @@ use std::collections::HashMap;
 use serde::Serialize;
 
 use super::Timestamp;
+use super::csv_out::{Cell, CsvOut};
 
 /// One period of history.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
@@ -264,7 +265,10 @@ pub fn from_json_bytes(bytes: &[u8]) -> Result<Vec<Observation>, Vec<RowProblem>
         Err(e) => Err(vec![RowProblem {
             line: Some(e.line() as u64),
             item: None,
-            reason: format!("not JSON of the expected shape: {e}"),
+            reason: format!(
+                "not JSON of the expected shape: {}",
+                super::json_errors::describe(&e)
+            ),
         }]),
     }
 }
@@ -483,16 +487,12 @@ fn finish(kept: Kept) -> Result<Vec<Observation>, Vec<RowProblem>> {
 }
 
 /// Observations as RFC 4180 CSV with a header row, CRLF line ends, oldest first: the format
-/// the upload reads, so a download can be uploaded again unchanged.
+/// the upload reads, so a download can be uploaded again unchanged. Both columns are times and
+/// numbers, never text (`csv_out`), so a value of -1.5 stays `-1.5`.
 pub fn to_csv(rows: &[Observation]) -> Vec<u8> {
-    let mut w = csv::WriterBuilder::new()
-        .terminator(csv::Terminator::CRLF)
-        .from_writer(Vec::with_capacity(rows.len() * 40 + 20));
-    w.write_record(["period_start", "value"])
-        .expect("writing to memory");
+    let mut out = CsvOut::new(&["period_start", "value"], rows.len() * 40 + 20);
     for o in rows {
-        w.write_record([o.period_start.to_string(), super::number::format(o.value)])
-            .expect("writing to memory");
+        out.row(&[Cell::Time(o.period_start), Cell::number(Some(o.value))]);
     }
-    w.into_inner().expect("flushing to memory")
+    out.finish()
 }

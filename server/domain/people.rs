@@ -6,7 +6,7 @@ use std::str::FromStr;
 
 use serde::{Deserialize, Deserializer, Serialize};
 
-use super::text::{TextError, bounded};
+use super::text::{self, TextError};
 
 #[derive(Clone, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
 #[serde(transparent)]
@@ -44,9 +44,10 @@ impl<'de> Deserialize<'de> for Username {
     }
 }
 
-/// A display name: 1 to 200 characters, shown beside every decision a person makes.
+/// A display name: 1 to 200 characters on one line, shown beside every decision a person
+/// makes.
 pub fn display_name(text: &str) -> Result<String, TextError> {
-    bounded("display_name", text.trim(), 1, 200)
+    text::single_line("display_name", text, 1, 200)
 }
 
 /// What a person may do. One person may hold several roles; `owner` marks people who may be
@@ -100,7 +101,7 @@ impl FromStr for Role {
     fn from_str(s: &str) -> Result<Self, Self::Err> {
         Role::ALL
             .into_iter()
-            .find(|r| r.as_str() == s.trim())
+            .find(|r| r.as_str() == text::trim(s))
             .ok_or_else(|| RoleError(s.to_string()))
     }
 }
@@ -118,7 +119,7 @@ impl Roles {
     /// Parses `admin,reviewer`; blanks are ignored, an unknown name is an error.
     pub fn parse_list(text: &str) -> Result<Roles, RoleError> {
         text.split(',')
-            .map(str::trim)
+            .map(text::trim)
             .filter(|s| !s.is_empty())
             .map(Role::from_str)
             .collect::<Result<BTreeSet<_>, _>>()
@@ -142,9 +143,13 @@ impl Roles {
     }
 }
 
-/// Password length rule of OWASP ASVS 4.0.3 §2.1.1 (at least 12 characters) and §2.1.2
-/// (at most 128); any characters are allowed and nothing else is imposed (§2.1.9).
+/// A new password: the length rule of OWASP ASVS 4.0.3 §2.1.1 (at least 12 characters) and
+/// §2.1.2 (at most 128); any printable character is allowed (§2.1.4: spaces, any language,
+/// emoji) and nothing else is imposed (§2.1.9). Control characters are not printable and are
+/// refused like in every other text field. A password being checked (sign-in, sign-off) is only
+/// ever right or wrong, whatever it holds.
 pub fn check_password(password: &str) -> Result<(), TextError> {
+    text::no_control("password", password)?;
     let n = password.chars().count();
     if n < 12 {
         Err(TextError::TooShort {

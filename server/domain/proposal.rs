@@ -53,6 +53,19 @@ pub fn rationale(value: &str) -> Result<String, TextError> {
     Ok(r)
 }
 
+/// A revision hash as a request names it: the 64 lowercase hex characters of a SHA-256;
+/// anything else cannot name a revision.
+pub fn revision_hash<'a>(field: &str, text: &'a str) -> Result<&'a str, String> {
+    let hex = |b: &u8| b.is_ascii_digit() || (b'a'..=b'f').contains(b);
+    if text.len() == 64 && text.as_bytes().iter().all(hex) {
+        Ok(text)
+    } else {
+        Err(format!(
+            "{field} must be the 64 lowercase hex characters of a revision's hash"
+        ))
+    }
+}
+
 /// Validates everything at once, so a form can show every problem beside its field.
 /// `default_unit` is the metric's unit, used when none is given.
 pub fn validate_content(
@@ -60,7 +73,7 @@ pub fn validate_content(
     default_unit: &str,
 ) -> Result<ThresholdContent, Problems> {
     let mut p = Problems::default();
-    let direction: Option<Direction> = p.check("direction", input.direction.trim().parse());
+    let direction: Option<Direction> = p.check("direction", text::trim(&input.direction).parse());
     let cuts = direction.and_then(|d| {
         p.check(
             "cuts",

@@ -1,4 +1,8 @@
-//! Length limits on free text (DESIGN.md), counted in characters.
+//! Length limits on free text (DESIGN.md), counted in characters, and the one rule on control
+//! characters for every text field: a control character (Unicode general category Cc: the C0
+//! controls, DEL and the C1 controls) is refused wherever it stands; only multi-line fields
+//! take line breaks and tabs. Trimming removes spaces, never a control character, so one at
+//! either end is refused too rather than silently dropped.
 
 #[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
 pub enum TextError {
@@ -45,18 +49,36 @@ pub fn bounded(
     Ok(text.to_string())
 }
 
-/// A one-line field (name, unit, tag): bounded and free of control characters.
+/// True when `text` holds a control character (Unicode general category Cc).
+pub fn has_control(text: &str) -> bool {
+    text.chars().any(char::is_control)
+}
+
+/// `text` without the spaces at its ends (Unicode White_Space), leaving any control character
+/// in place for the field's rule to refuse.
+pub fn trim(text: &str) -> &str {
+    text.trim_matches(|c: char| c.is_whitespace() && !c.is_control())
+}
+
+/// Refuses a control character anywhere in a one-line text.
+pub fn no_control(field: &'static str, text: &str) -> Result<(), TextError> {
+    if has_control(text) {
+        Err(TextError::Control { field })
+    } else {
+        Ok(())
+    }
+}
+
+/// A one-line field (name, unit, tag, label, display name): bounded and free of control
+/// characters.
 pub fn single_line(
     field: &'static str,
     text: &str,
     min: usize,
     max: usize,
 ) -> Result<String, TextError> {
-    let text = text.trim();
-    if text.chars().any(char::is_control) {
-        return Err(TextError::Control { field });
-    }
-    bounded(field, text, min, max)
+    no_control(field, text)?;
+    bounded(field, trim(text), min, max)
 }
 
 /// A multi-line field (description, rationale): bounded; tabs and line breaks allowed, other

@@ -43,7 +43,7 @@ impl Timestamp {
     /// Only years 0001 to 9999 (in UTC) are times here, so that every stored time has the
     /// same width and text order is time order on every database.
     pub fn parse(text: &str) -> Result<Timestamp, TimeParseError> {
-        let trimmed = text.trim();
+        let trimmed = super::text::trim(text);
         let bad = || TimeParseError(text.to_string());
         // YYYY-MM-DD exactly: chrono's %Y would also take signs and other widths.
         let digits_at = |i: usize| trimmed.as_bytes().get(i).is_some_and(u8::is_ascii_digit);

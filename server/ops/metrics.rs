@@ -55,7 +55,10 @@ fn present_or_null<'de, D: serde::Deserializer<'de>>(
 
 pub fn validate_new(input: &NewMetric) -> Result<(MetricKey, MetricFields), Problems> {
     let mut p = Problems::default();
-    let key = p.check("key", MetricKey::parse(input.key.trim()));
+    let key = p.check(
+        "key",
+        MetricKey::parse(crate::domain::text::trim(&input.key)),
+    );
     let name = p.check("name", metric::name(&input.name));
     let description = p.check("description", metric::description(&input.description));
     let unit = p.check("unit", metric::unit(&input.unit));

@@ -127,6 +127,11 @@ fn validate(
     Ok(content)
 }
 
+/// A revision hash named by the request, checked for its form before anything else.
+fn hash_named<'a>(field: &str, text: &'a str) -> OpResult<&'a str> {
+    crate::domain::proposal::revision_hash(field, text).map_err(|m| single(field, m))
+}
+
 fn note(text_in: &str) -> OpResult<String> {
     text::multi_line("note", text_in, 1, NOTE_MAX).map_err(|e| single("note", e.to_string()))
 }
@@ -233,15 +238,19 @@ async fn load(w: &mut WriteTx, id: i64) -> OpResult<(ProposalBundle, Metric)> {
 
 /// `PUT /api/v1/proposals/{id}`: a new revision. Earlier approvals and sign-offs become stale.
 pub async fn revise(store: &Store, by: &User, id: i64, input: &RevisionInput) -> OpResult<()> {
+    let base_hash = input
+        .base_revision_hash
+        .as_deref()
+        .filter(|h| !h.is_empty());
+    if let Some(h) = base_hash {
+        hash_named("base_revision_hash", h)?;
+    }
     let mut w = store.begin_write().await?;
     let (bundle, metric) = load(&mut w, id).await?;
     let state = bundle.proposal.state;
     workflow::may_revise(rules_actor(by, &metric), state).map_err(refusal)?;
     let latest_rev = bundle.latest();
-    if let Some(base) = input
-        .base_revision_hash
-        .as_deref()
-        .filter(|h| !h.is_empty())
+    if let Some(base) = base_hash
         && base != latest_rev.content_hash
     {
         return Err(OpError::Conflict(format!(
@@ -558,6 +567,7 @@ pub async fn review(
     revision_hash: &str,
     comment: &str,
 ) -> OpResult<Outcome> {
+    let revision_hash = hash_named("revision_hash", revision_hash)?;
     let comment = text::multi_line("comment", comment, 0, text::RATIONALE_MAX)
         .map_err(|e| single("comment", e.to_string()))?;
     let mut w = store.begin_write().await?;
@@ -597,15 +607,27 @@ pub async fn review(
     Ok(outcome)
 }
 
-/// `POST .../signoff`: a signatory signs the latest revision off, re-entering their password.
-pub async fn sign_off(
-    store: &Store,
+/// The sign-off's rule, decided in `w` on the proposal as it stands: the transaction back
+/// when the caller may sign now, with the proposal, its metric and why a sign-off is needed.
+/// A separation-of-duties refusal is recorded (and committed) as `signoff.refused`.
+async fn signoff_allowed(
+    mut w: WriteTx,
     by: &User,
     id: i64,
     revision_hash: &str,
-    password: &str,
-) -> OpResult<Outcome> {
-    // A fresh authentication, throttled like sign-in, checked before taking the write lock.
+) -> OpResult<(WriteTx, ProposalBundle, Metric, Vec<String>)> {
+    let (bundle, metric) = load(&mut w, id).await?;
+    let previous = versions::latest(w.conn(), metric.id).await?;
+    let (_, reasons) = changes_and_reasons(&bundle, previous.as_ref());
+    let d = decision(&bundle, by, revision_hash);
+    let rule = workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty());
+    let w = passed(w, rule, by, &metric, "signoff.refused", &bundle).await?;
+    Ok((w, bundle, metric, reasons))
+}
+
+/// A fresh authentication for a sign-off, throttled like sign-in and checked outside the
+/// write lock (hashing takes tens of milliseconds). A wrong password is recorded and counted.
+async fn reauthenticate(store: &Store, by: &User, id: i64, password: &str) -> OpResult<()> {
     let account = by.username.as_str();
     if let Some(until) = throttle::locked_until(store, throttle::Scope::Account, account).await? {
         throttle::count_refused(store, throttle::Scope::Account, account).await?;
@@ -622,27 +644,43 @@ pub async fn sign_off(
         tokio::task::spawn_blocking(move || crate::auth::password::verify(&plain, &hash))
             .await
             .unwrap_or(false);
-    let mut w = store.begin_write().await?;
-    if !verified {
-        throttle::count_failure(&mut w, throttle::Scope::Account, account).await?;
-        w.record(
-            &actor_of(by),
-            "signoff.password_failed",
-            &crate::store::users::subject(account),
-            json!({"proposal": id}),
-        )
-        .await?;
-        w.commit().await?;
-        return Err(OpError::BadCredentials(
-            "the password is not right; a sign-off needs your own password".into(),
-        ));
+    if verified {
+        return Ok(());
     }
-    let (bundle, metric) = load(&mut w, id).await?;
-    let d = decision(&bundle, by, revision_hash);
-    let previous = versions::latest(w.conn(), metric.id).await?;
-    let (_, reasons) = changes_and_reasons(&bundle, previous.as_ref());
-    let rule = workflow::may_sign_off(rules_actor(by, &metric), &d, !reasons.is_empty());
-    let mut w = passed(w, rule, by, &metric, "signoff.refused", &bundle).await?;
+    let mut w = store.begin_write().await?;
+    throttle::count_failure(&mut w, throttle::Scope::Account, account).await?;
+    w.record(
+        &actor_of(by),
+        "signoff.password_failed",
+        &crate::store::users::subject(account),
+        json!({"proposal": id}),
+    )
+    .await?;
+    w.commit().await?;
+    Err(OpError::BadCredentials(
+        "the password is not right; a sign-off needs your own password".into(),
+    ))
+}
+
+/// `POST .../signoff`: a signatory signs the latest revision off, re-entering their password.
+pub async fn sign_off(
+    store: &Store,
+    by: &User,
+    id: i64,
+    revision_hash: &str,
+    password: &str,
+) -> OpResult<Outcome> {
+    let revision_hash = hash_named("revision_hash", revision_hash)?;
+    // Who and when come before the password: the wrong person (403) or the right person at
+    // the wrong moment (409) is refused whatever password came, so the answer tells nothing
+    // about the password, and no failed attempt is recorded or counted for someone who may
+    // not sign. This check writes nothing; committing only ends its transaction and lock.
+    let (checked, ..) = signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;
+    checked.commit().await?;
+    reauthenticate(store, by, id, password).await?;
+    // Decided again in the transaction that writes: another step may have come in between.
+    let (mut w, bundle, metric, reasons) =
+        signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;
     let latest = bundle.latest();
     records::insert_signoff(
         &mut w,

@@ -5,6 +5,7 @@ use super::{OpError, OpResult};
 use crate::auth::password;
 use crate::domain::metric::Problems;
 use crate::domain::people::{self, check_password};
+use crate::domain::text;
 use crate::domain::{Role, Roles, Timestamp, Username};
 use crate::store::tokens::{Scope, TokenInfo};
 use crate::store::users::User;
@@ -56,9 +57,9 @@ pub async fn hash_password(plain: String) -> String {
 pub async fn add(store: &Store, by: By<'_>, input: &NewUser) -> OpResult<User> {
     by.require_admin()?;
     let mut p = Problems::default();
-    let username = p.check("username", Username::parse(input.username.trim()));
-    let display = if input.display_name.trim().is_empty() {
-        Some(input.username.trim().to_string())
+    let username = p.check("username", Username::parse(text::trim(&input.username)));
+    let display = if text::trim(&input.display_name).is_empty() {
+        Some(text::trim(&input.username).to_string())
     } else {
         p.check("display_name", people::display_name(&input.display_name))
     };
@@ -108,8 +109,16 @@ pub async fn add_with_hash(
     Ok(user)
 }
 
+/// The person a request names: a text that is no username names nobody (400 naming the
+/// field), and never reaches the database.
+fn named(username: &str) -> OpResult<Username> {
+    Username::parse(username).map_err(|e| single("username", e))
+}
+
 pub async fn set_roles(store: &Store, by: By<'_>, username: &str, roles: &str) -> OpResult<User> {
     by.require_admin()?;
+    let username = named(username)?;
+    let username = username.as_str();
     let roles = Roles::parse_list(roles).map_err(|e| single("roles", e))?;
     if roles.is_empty() {
         return Err(single("roles", "give at least one role"));
@@ -136,6 +145,8 @@ pub async fn set_display_name(
     display_name: &str,
 ) -> OpResult<User> {
     by.require_admin()?;
+    let username = named(username)?;
+    let username = username.as_str();
     let display = people::display_name(display_name).map_err(|e| single("display_name", e))?;
     let mut w = store.begin_write().await?;
     let user = users::set_display_name(&mut w, &by.actor(), username, &display).await?;
@@ -145,6 +156,8 @@ pub async fn set_display_name(
 
 pub async fn set_active(store: &Store, by: By<'_>, username: &str, active: bool) -> OpResult<User> {
     by.require_admin()?;
+    let username = named(username)?;
+    let username = username.as_str();
     if let By::Person(me) = by
         && me.username == username
         && !active
@@ -166,6 +179,8 @@ pub async fn reset_password(
     new_password: &str,
 ) -> OpResult<User> {
     by.require_admin()?;
+    let username = named(username)?;
+    let username = username.as_str();
     check_password(new_password).map_err(|e| single("password", e))?;
     users::get(store, username).await?;
     let hash = hash_password(new_password.to_string()).await;
@@ -191,8 +206,10 @@ pub async fn issue_token(
     expires_at: Option<Timestamp>,
 ) -> OpResult<(String, TokenInfo)> {
     by.require_admin()?;
-    let label = crate::domain::text::single_line("label", label, 0, crate::domain::text::LABEL_MAX)
-        .map_err(|e| single("label", e))?;
+    let username = named(username)?;
+    let username = username.as_str();
+    let label =
+        text::single_line("label", label, 0, text::LABEL_MAX).map_err(|e| single("label", e))?;
     if expires_at.is_some_and(|t| t <= Timestamp::now()) {
         return Err(single("expires_at", "the expiry must lie in the future"));
     }
@@ -223,5 +240,6 @@ pub async fn list_tokens(
     username: Option<&str>,
 ) -> OpResult<Vec<TokenInfo>> {
     by.require_admin()?;
-    Ok(tokens::list(store, username).await?)
+    let username = username.map(named).transpose()?;
+    Ok(tokens::list(store, username.as_ref().map(Username::as_str)).await?)
 }

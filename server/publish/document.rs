@@ -12,6 +12,7 @@ use sha2::{Digest, Sha256};
 
 use super::signing::Signer;
 use crate::domain::Timestamp;
+use crate::domain::csv_out::{Cell, CsvOut};
 use crate::domain::proposal::cuts_object;
 use crate::store::versions::VersionRecord;
 
@@ -151,37 +152,35 @@ pub fn document(content: &SetContent, signer: &Signer) -> Value {
     doc
 }
 
-/// The set as RFC 4180 CSV: a header row, one row per metric, CRLF line ends.
+/// The set as RFC 4180 CSV: a header row, one row per metric, CRLF line ends; text cells
+/// safe for spreadsheets (`domain::csv_out`).
 pub fn csv(content: &SetContent) -> Vec<u8> {
-    let mut w = csv::WriterBuilder::new()
-        .terminator(csv::Terminator::CRLF)
-        .from_writer(Vec::new());
     let mut header = vec!["key", "name", "unit", "direction"];
     header.extend(CSV_CUTS);
     header.extend(["shades", "version", "effective_from", "approved_at"]);
-    w.write_record(&header).expect("writing to memory");
+    let mut out = CsvOut::new(&header, 200 * (content.versions.len() + 1));
     for (key, v) in &content.versions {
         let cuts: BTreeMap<&str, f64> = v.content.cuts.named().into_iter().collect();
         let mut row = vec![
-            key.clone(),
-            v.metric_name.clone(),
-            v.content.unit.clone(),
-            v.content.direction().as_str().to_string(),
+            Cell::Text(key),
+            Cell::Text(&v.metric_name),
+            Cell::Text(&v.content.unit),
+            Cell::Text(v.content.direction().as_str()),
         ];
-        row.extend(CSV_CUTS.iter().map(|name| {
-            cuts.get(name)
-                .map(|x| crate::domain::number::format(*x))
-                .unwrap_or_default()
-        }));
+        row.extend(
+            CSV_CUTS
+                .iter()
+                .map(|name| Cell::number(cuts.get(name).copied())),
+        );
         row.extend([
-            v.content.shades.get().to_string(),
-            v.number.to_string(),
-            v.effective_from.to_string(),
-            v.approved_at.to_string(),
+            Cell::Number(v.content.shades.get().to_string()),
+            Cell::Number(v.number.to_string()),
+            Cell::Time(v.effective_from),
+            Cell::Time(v.approved_at),
         ]);
-        w.write_record(&row).expect("writing to memory");
+        out.row(&row);
     }
-    w.into_inner().expect("flushing to memory")
+    out.finish()
 }
 
 /// Encodes, signs and renders both formats.

@@ -39,6 +39,15 @@ impl ApiError {
         ApiError::new(StatusCode::BAD_REQUEST, "bad_request", message)
     }
 
+    /// A malformed request parameter (query or body field), named in `fields`.
+    pub fn bad_param(name: impl Into<String>, message: impl Into<String>) -> ApiError {
+        let message = message.into();
+        ApiError {
+            fields: Some(Problems::single(name, message.clone())),
+            ..ApiError::bad_request(message)
+        }
+    }
+
     pub fn invalid(problems: Problems) -> ApiError {
         ApiError {
             fields: Some(problems.clone()),

@@ -12,6 +12,8 @@ use serde::de::DeserializeOwned;
 
 use super::AppState;
 use super::error::ApiError;
+use crate::domain::metric::Problems;
+use crate::domain::text;
 
 /// A JSON body: `application/json` (415 otherwise), within the body limit (413), and a
 /// well-formed value of `T` (400 naming the field and what was wrong).
@@ -27,14 +29,71 @@ fn is_json(content_type: &str) -> bool {
     mime == "application/json" || (mime.starts_with("application/") && mime.ends_with("+json"))
 }
 
-/// Parses JSON into `T`, naming the path of the offending field in the error.
+fn bad_json(message: impl Into<String>) -> ApiError {
+    ApiError::new(StatusCode::BAD_REQUEST, "bad_json", message)
+}
+
+/// The fields `T` reads when it is read from a JSON object (a struct), from its own
+/// `Deserialize`: asked once, with a reader that only notes what it is asked for.
+fn struct_fields<T: DeserializeOwned>() -> Option<&'static [&'static str]> {
+    use serde::de::{Deserializer, Error, Visitor, value};
+    struct Probe<'a>(&'a mut Option<&'static [&'static str]>);
+    impl<'de> Deserializer<'de> for Probe<'_> {
+        type Error = value::Error;
+        fn deserialize_any<V: Visitor<'de>>(self, _: V) -> Result<V::Value, value::Error> {
+            Err(value::Error::custom("not a struct"))
+        }
+        fn deserialize_struct<V: Visitor<'de>>(
+            self,
+            _: &'static str,
+            fields: &'static [&'static str],
+            _: V,
+        ) -> Result<V::Value, value::Error> {
+            *self.0 = Some(fields);
+            Err(value::Error::custom("noted"))
+        }
+        serde::forward_to_deserialize_any! {
+            bool i8 i16 i32 i64 i128 u8 u16 u32 u64 u128 f32 f64 char str string bytes
+            byte_buf option unit unit_struct newtype_struct seq tuple tuple_struct map enum
+            identifier ignored_any
+        }
+    }
+    let mut fields = None;
+    let _ = T::deserialize(Probe(&mut fields));
+    fields
+}
+
+/// What a body holds instead of an object, judged by its first character; `None` for an
+/// object (or for something that is not JSON at all, which the parser reports).
+fn not_an_object(bytes: &[u8]) -> Option<&'static str> {
+    match bytes.iter().find(|b| !b.is_ascii_whitespace())? {
+        b'[' => Some("an array"),
+        b'"' => Some("a string"),
+        b't' => Some("true"),
+        b'f' => Some("false"),
+        b'n' => Some("null"),
+        b'-' | b'0'..=b'9' => Some("a number"),
+        _ => None,
+    }
+}
+
+/// The field a `missing field `NAME`` message names.
+fn missing_field(message: &str) -> Option<&str> {
+    message.strip_prefix("missing field `")?.strip_suffix('`')
+}
+
+/// Parses JSON into `T`. Errors say what was expected in the API's words (a JSON object with
+/// its fields, a string, a whole number...; `domain::json_errors`), never the program's type
+/// names, and name the path of the offending field in the message and in `error.fields`.
 pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     if bytes.iter().all(u8::is_ascii_whitespace) {
-        return Err(ApiError::new(
-            StatusCode::BAD_REQUEST,
-            "bad_json",
-            "the request body is empty; send a JSON object",
-        ));
+        return Err(bad_json("the request body is empty; send a JSON object"));
+    }
+    if let (Some(fields), Some(got)) = (struct_fields::<T>(), not_an_object(bytes)) {
+        return Err(bad_json(format!(
+            "the body must be a JSON object with the fields {}; got {got}",
+            fields.join(", ")
+        )));
     }
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let value: T = serde_path_to_error::deserialize(&mut de).map_err(|e| {
@@ -44,21 +103,33 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
             inner.classify(),
             serde_json::error::Category::Syntax | serde_json::error::Category::Eof
         );
-        let message = if syntax || path == "." || path.is_empty() {
-            format!("malformed JSON: {inner}")
+        if syntax {
+            return bad_json(format!("malformed JSON: {inner}"));
+        }
+        let what = crate::domain::json_errors::describe(&inner);
+        let field = if path == "." || path.is_empty() {
+            missing_field(&what).map(str::to_string)
         } else {
-            format!("{path}: {inner}")
+            Some(path)
         };
-        ApiError::new(StatusCode::BAD_REQUEST, "bad_json", message)
+        match field {
+            Some(field) => {
+                let message = if what.contains(&format!("`{field}`")) {
+                    what
+                } else {
+                    format!("{field}: {what}")
+                };
+                ApiError {
+                    fields: Some(Problems::single(&field, message.clone())),
+                    ..bad_json(message)
+                }
+            }
+            None => bad_json(format!("the body is not what this endpoint takes: {what}")),
+        }
     })?;
     // Anything after the value is malformed too.
-    de.end().map_err(|e| {
-        ApiError::new(
-            StatusCode::BAD_REQUEST,
-            "bad_json",
-            format!("malformed JSON: {e}"),
-        )
-    })?;
+    de.end()
+        .map_err(|e| bad_json(format!("malformed JSON: {e}")))?;
     Ok(value)
 }
 
@@ -134,6 +205,21 @@ impl<T: DeserializeOwned> FromRequest<AppState> for ApiJson<T> {
     }
 }
 
+/// Every query parameter is a one-line text: one holding a control character (after
+/// percent-decoding) answers 400 naming it, before anything is read or looked up.
+pub fn refuse_controls_in_query(query: &str) -> Result<(), ApiError> {
+    let pairs: Vec<(String, String)> = serde_urlencoded::from_str(query).unwrap_or_default();
+    let Some((name, _)) = pairs
+        .iter()
+        .find(|(name, value)| text::has_control(name) || text::has_control(value))
+    else {
+        return Ok(());
+    };
+    let name = name.escape_debug().to_string();
+    let message = format!("{name} must not contain control characters");
+    Err(ApiError::bad_param(name, message))
+}
+
 /// Query parameters as `T`; a malformed query answers 400 in JSON.
 pub struct ApiQuery<T>(pub T);
 
@@ -142,6 +228,7 @@ impl<T: DeserializeOwned> FromRequestParts<AppState> for ApiQuery<T> {
 
     async fn from_request_parts(parts: &mut Parts, _: &AppState) -> Result<Self, Self::Rejection> {
         let query = parts.uri.query().unwrap_or("");
+        refuse_controls_in_query(query)?;
         serde_urlencoded::from_str(query)
             .map(ApiQuery)
             .map_err(|e| ApiError::bad_request(format!("bad query parameter: {e}")))
@@ -192,5 +279,5 @@ pub fn time_param(name: &str, text: &str) -> Result<Option<crate::domain::Timest
     }
     crate::domain::Timestamp::parse(text)
         .map(Some)
-        .map_err(|e| ApiError::bad_request(format!("{name}: {e}")))
+        .map_err(|e| ApiError::bad_param(name, format!("{name}: {e}")))
 }

@@ -7,6 +7,7 @@ pub mod error;
 pub mod extract;
 pub mod history_chart;
 pub mod pages;
+pub mod redirect;
 pub mod svg;
 pub mod templates;
 pub mod token_cache;

@@ -169,19 +169,7 @@ on_both_backends! {
         // RFC 4180: every record ends with CRLF.
         assert!(csv.ends_with("\r\n"));
         assert!(!csv.replace("\r\n", "").contains("\r"));
-        let Some(python) = python3() else {
-            missing_prerequisite("python3 (its csv module is the reference CSV reader)");
-            return;
-        };
-        let dir = tempfile::tempdir().unwrap();
-        let path = dir.path().join("events.csv");
-        std::fs::write(&path, &csv).unwrap();
-        let out = Command::new(python)
-            .args(["-c", "import csv, json, sys\nwith open(sys.argv[1], newline='', encoding='utf-8') as f:\n    print(json.dumps(list(csv.reader(f))))", path.to_str().unwrap()])
-            .output()
-            .unwrap();
-        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
-        let rows: Vec<Vec<String>> = serde_json::from_slice(&out.stdout).unwrap();
+        let Some(rows) = crate::helpers::python_csv_rows(&csv) else { return };
         assert_eq!(rows[0], ["seq", "at", "actor", "action", "subject", "payload", "prev_hash", "hash"]);
         assert_eq!(rows.len(), entries.len() + 2, "header, one row per event, summary");
         for (row, e) in rows[1..].iter().zip(entries) {

@@ -98,7 +98,7 @@ fn catalogue() -> Vec<Case> {
             "[1, 2]",
             400,
             "bad_json",
-            "invalid type",
+            "the body must be a JSON object with the fields key, name,",
         ),
         json_case(
             "unknown field",
@@ -119,14 +119,14 @@ fn catalogue() -> Vec<Case> {
             with("name", json!(5)),
             400,
             "bad_json",
-            "name: invalid type: integer `5`, expected a string",
+            "name: expected a string, got the number 5",
         ),
         json_case(
             "wrong type in a list",
             with("owners", json!(["tomas", 7])),
             400,
             "bad_json",
-            "owners[1]: invalid type",
+            "owners[1]: expected a string, got the number 7",
         ),
         json_case(
             "bad metric key",
@@ -196,7 +196,7 @@ fn catalogue() -> Vec<Case> {
             with("review_cadence_months", json!(1.5)),
             400,
             "bad_json",
-            "review_cadence_months: invalid type: floating point",
+            "review_cadence_months: expected a whole number, got the number 1.5",
         ),
         json_case(
             "bad tag",
@@ -281,7 +281,7 @@ fn catalogue() -> Vec<Case> {
             r#"{"tags": "fleet"}"#,
             400,
             "bad_json",
-            "tags: invalid type",
+            "tags: expected a JSON array, got the string \"fleet\"",
         ),
         raw(
             "patch of a missing metric",
@@ -407,7 +407,7 @@ fn catalogue() -> Vec<Case> {
             r#"{"direction": "higher_is_better", "cuts": {"critical": 1, "intervene": 2, "outperform": 3, "stretch": 4}, "values": ["7"]}"#,
             400,
             "bad_json",
-            "values[0]: invalid type: string",
+            "values[0]: expected a number, got the string \"7\"",
         ),
     ]
 }

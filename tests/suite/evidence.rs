@@ -17,7 +17,7 @@ use proptest::prelude::*;
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 
-use crate::helpers::missing_prerequisite;
+use crate::helpers::{missing_prerequisite, python_json};
 use crate::on_both_backends;
 use crate::workflow_support::{METRIC, Team, hib};
 
@@ -127,29 +127,15 @@ fn pseudo_random(n: usize, seed: u64) -> Vec<f64> {
 /// Asks numpy (the reference) for percentiles, mean and sample sd, or `None` (reported as a
 /// skip, a failure under CI) when python3 with numpy is missing.
 fn numpy_stats(values: &[f64]) -> Option<Vec<f64>> {
-    let script = "import json, sys\nimport numpy as np\nv = np.array(json.load(sys.stdin), dtype=float)\nout = [float(np.percentile(v, p)) for p in (10, 25, 50, 75, 90)]\nout += [float(v.mean()), float(v.std(ddof=1)), float(v.min()), float(v.max())]\nprint(json.dumps(out))\n";
-    let child = Command::new("python3")
-        .args(["-c", script])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn();
-    let Ok(mut child) = child else {
-        missing_prerequisite("python3 with numpy (reference percentiles)");
-        return None;
-    };
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(serde_json::to_string(values).unwrap().as_bytes())
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
-    if !out.status.success() {
-        missing_prerequisite("python3 with numpy (reference percentiles)");
-        return None;
+    let script = "import json, sys\ntry:\n    import numpy as np\nexcept ImportError:\n    print('null')\n    sys.exit()\nv = np.array(json.load(sys.stdin), dtype=float)\nout = [float(np.percentile(v, p)) for p in (10, 25, 50, 75, 90)]\nout += [float(v.mean()), float(v.std(ddof=1)), float(v.min()), float(v.max())]\nprint(json.dumps(out))\n";
+    let what = "numpy (reference percentiles)";
+    match python_json(script, &json!(values), what)? {
+        Value::Null => {
+            missing_prerequisite(&format!("python3 with {what}"));
+            None
+        }
+        out => Some(serde_json::from_value(out).unwrap()),
     }
-    Some(serde_json::from_slice(&out.stdout).unwrap())
 }
 
 #[test]

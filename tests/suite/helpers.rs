@@ -386,32 +386,56 @@ macro_rules! on_both_backends {
 /// Checks `svg` with the reference parser, Python's `xml.etree.ElementTree`; false when
 /// python3 is missing (reported as a skip, a failure under CI).
 pub fn parses_as_xml(svg: &str) -> bool {
+    let script = "import json, sys, xml.etree.ElementTree as ET\nET.fromstring(json.load(sys.stdin))\nprint('true')";
+    python_json(script, &Value::from(svg), "reference XML parser").is_some()
+}
+
+/// Runs a Python 3 script with `input` as JSON on its stdin and reads its stdout as JSON: for
+/// checks against Python's standard library (`csv`, `urllib.parse`) as the outside reference.
+/// `None` when python3 is missing (reported as a skip, a failure under CI).
+pub fn python_json(script: &str, input: &Value, what: &str) -> Option<Value> {
     use std::io::Write;
     use std::process::{Command, Stdio};
     let child = Command::new("python3")
-        .args([
-            "-c",
-            "import sys, xml.etree.ElementTree as ET; ET.fromstring(sys.stdin.buffer.read())",
-        ])
+        .args(["-c", script])
         .stdin(Stdio::piped())
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn();
     let Ok(mut child) = child else {
-        missing_prerequisite("python3 (reference XML parser)");
-        return false;
+        missing_prerequisite(&format!("python3 ({what})"));
+        return None;
     };
     child
         .stdin
         .take()
         .unwrap()
-        .write_all(svg.as_bytes())
+        .write_all(input.to_string().as_bytes())
         .unwrap();
     let output = child.wait_with_output().unwrap();
     assert!(
         output.status.success(),
-        "the reference XML parser refused the SVG: {}\n{svg}",
+        "python3 failed: {}",
         String::from_utf8_lossy(&output.stderr)
     );
-    true
+    Some(serde_json::from_slice(&output.stdout).expect("the script prints JSON"))
+}
+
+/// The records of a CSV text as Python's `csv` module reads them (the reference reader).
+pub fn python_csv_rows(text: &str) -> Option<Vec<Vec<String>>> {
+    let script = "import csv, io, json, sys\nprint(json.dumps(list(csv.reader(io.StringIO(json.load(sys.stdin), newline='')))))";
+    python_json(
+        script,
+        &Value::from(text),
+        "its csv module is the reference CSV reader",
+    )
+    .map(|rows| serde_json::from_value(rows).unwrap())
+}
+
+/// The number of sessions stored.
+pub async fn session_count(app: &TestApp) -> i64 {
+    sqlx::query_scalar("SELECT COUNT(*) FROM sessions")
+        .fetch_one(app.store.pool())
+        .await
+        .unwrap()
 }

@@ -9,6 +9,7 @@ use serde::Deserialize;
 use super::metrics::KeyPath;
 use super::openapi::{AuditView, ErrorBody};
 use crate::domain::MetricKey;
+use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::{self, Extract};
 use crate::store::events::EventFilter;
 use crate::web::AppState;
@@ -109,11 +110,10 @@ fn summary_headers(x: &Extract) -> HeaderMap {
 }
 
 /// The extract as RFC 4180 CSV: a header row, one record per event (CRLF line ends, fields
-/// with commas, quotes or line breaks quoted), and a last record summarising the extract.
+/// with commas, quotes or line breaks quoted), and a last record summarising the extract. Text
+/// cells are safe for spreadsheets (`domain::csv_out`; docs/audit-chain.md says how a verifier
+/// undoes it).
 pub fn extract_csv(x: &Extract) -> Vec<u8> {
-    let mut w = csv::WriterBuilder::new()
-        .terminator(csv::Terminator::CRLF)
-        .from_writer(Vec::new());
     let header = [
         "seq",
         "at",
@@ -124,20 +124,19 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
         "prev_hash",
         "hash",
     ];
-    w.write_record(header).expect("writing to memory");
+    let mut out = CsvOut::new(&header, 400 * (x.entries.len() + 2));
     for e in &x.entries {
         let payload = serde_json_canonicalizer::to_string(&e.event.payload).expect("plain JSON");
-        w.write_record([
-            e.event.seq.to_string().as_str(),
-            &e.event.at.to_string(),
-            &e.event.actor,
-            &e.event.action,
-            &e.event.subject,
-            &payload,
-            &e.prev_hash,
-            &e.hash,
-        ])
-        .expect("writing to memory");
+        out.row(&[
+            Cell::Number(e.event.seq.to_string()),
+            Cell::Time(e.event.at),
+            Cell::Text(&e.event.actor),
+            Cell::Text(&e.event.action),
+            Cell::Text(&e.event.subject),
+            Cell::Text(&payload),
+            Cell::Text(&e.prev_hash),
+            Cell::Text(&e.hash),
+        ]);
     }
     let s = &x.summary;
     let summary = format!(
@@ -148,9 +147,18 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
         s.head_seq,
         s.head_hash
     );
-    w.write_record(["summary", "", "", "", "", &summary, "", ""])
-        .expect("writing to memory");
-    w.into_inner().expect("flushing to memory")
+    let blank = || Cell::Text("");
+    out.row(&[
+        Cell::Text("summary"),
+        blank(),
+        blank(),
+        blank(),
+        blank(),
+        Cell::Text(&summary),
+        blank(),
+        blank(),
+    ]);
+    out.finish()
 }
 
 /// `GET /api/v1/audit.csv`.

@@ -10,6 +10,7 @@ use serde::de::DeserializeOwned;
 
 use super::metrics::KeyPath;
 use super::openapi::{AuditView, ErrorBody, History, ProposalInput, ProposalView};
+use crate::domain::metric::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::store::metrics;
@@ -181,9 +182,12 @@ pub async fn review(
     ApiJson(input): ApiJson<ReviewInput>,
 ) -> Result<Response, ApiError> {
     let verdict = Verdict::parse(&input.verdict).ok_or_else(|| {
-        ApiError::bad_request(format!(
-            "unknown verdict {:?}: expected approve or send_back",
-            input.verdict
+        ApiError::invalid(Problems::single(
+            "verdict",
+            format!(
+                "unknown verdict {:?}: expected approve or send_back",
+                input.verdict
+            ),
         ))
     })?;
     flow::review(

@@ -1,14 +1,15 @@
 //! Admin pages: people (add, roles, display name, activation, password reset) and API tokens
 //! (issue, list, revoke).
 
-use axum::extract::{Path, State};
+use axum::extract::{FromRequestParts, Path, State};
 use axum::http::StatusCode;
+use axum::http::request::Parts;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde_json::json;
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
 use crate::domain::metric::Problems;
-use crate::domain::{Role, Timestamp};
+use crate::domain::{Role, Timestamp, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
 use crate::store::sessions::Session;
@@ -17,6 +18,7 @@ use crate::store::{StoreError, tokens, users};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
+use crate::web::redirect::to_same_site;
 
 fn require_admin(session: &Session) -> Result<(), PageError> {
     if session.user.roles.has(Role::Admin) {
@@ -25,6 +27,23 @@ fn require_admin(session: &Session) -> Result<(), PageError> {
         Err(PageError(ApiError::forbidden(
             "only an admin may manage people and tokens",
         )))
+    }
+}
+
+/// The person an admin page's address names; a text that is no username names nobody (404)
+/// and never reaches the database.
+pub struct PersonPath(String);
+
+impl FromRequestParts<AppState> for PersonPath {
+    type Rejection = PageError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, PageError> {
+        let Path(text) = Path::<String>::from_request_parts(parts, state)
+            .await
+            .map_err(|e| PageError(ApiError::bad_request(e.body_text())))?;
+        Username::parse(&text)
+            .map(|u| PersonPath(u.as_str().to_string()))
+            .map_err(|_| PageError(ApiError::not_found(format!("no person named {text:?}"))))
     }
 }
 
@@ -151,7 +170,7 @@ pub struct SavedQuery {
 pub async fn user_detail(
     State(state): State<AppState>,
     PageSession(session): PageSession,
-    Path(username): Path<String>,
+    PersonPath(username): PersonPath,
     PageQuery(query): PageQuery<SavedQuery>,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
@@ -199,7 +218,7 @@ async fn reshow_user(
 pub async fn user_update(
     State(state): State<AppState>,
     PageSession(session): PageSession,
-    Path(username): Path<String>,
+    PersonPath(username): PersonPath,
     form: FormFields,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
@@ -220,7 +239,7 @@ pub async fn user_update(
 pub async fn user_active(
     State(state): State<AppState>,
     PageSession(session): PageSession,
-    Path(username): Path<String>,
+    PersonPath(username): PersonPath,
     form: FormFields,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
@@ -234,7 +253,7 @@ pub async fn user_active(
 pub async fn user_password(
     State(state): State<AppState>,
     PageSession(session): PageSession,
-    Path(username): Path<String>,
+    PersonPath(username): PersonPath,
     form: FormFields,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
@@ -412,11 +431,6 @@ pub async fn token_revoke(
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
     user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
     state.tokens.clear();
-    let back = form.get("back");
-    let back = if back.starts_with("/admin/") {
-        back
-    } else {
-        "/admin/tokens"
-    };
-    Ok(Redirect::to(back).into_response())
+    let back = Some(form.get("back")).filter(|b| b.starts_with("/admin/"));
+    Ok(to_same_site(back.unwrap_or(""), "/admin/tokens").into_response())
 }

@@ -351,7 +351,7 @@ pub async fn create(
     require_admin(&session)?;
     let mut problems = Problems::default();
     let input = NewMetric {
-        key: form.get("key").trim().to_string(),
+        key: form.get("key").to_string(),
         name: form.get("name").to_string(),
         description: form.get("description").to_string(),
         unit: form.get("unit").to_string(),

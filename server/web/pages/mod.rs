@@ -145,19 +145,21 @@ pub fn field_errors(problems: &Problems) -> BTreeMap<String, String> {
 }
 
 /// Query parameters of a page; a malformed query is read as no parameters, since a page can
-/// always be shown without them.
+/// always be shown without them. A control character in a parameter is refused (400 naming
+/// it), as in every text field.
 pub struct PageQuery<T>(pub T);
 
 impl<T: serde::de::DeserializeOwned + Default> axum::extract::FromRequestParts<AppState>
     for PageQuery<T>
 {
-    type Rejection = std::convert::Infallible;
+    type Rejection = PageError;
 
     async fn from_request_parts(
         parts: &mut axum::http::request::Parts,
         _: &AppState,
     ) -> Result<Self, Self::Rejection> {
         let query = parts.uri.query().unwrap_or("");
+        super::extract::refuse_controls_in_query(query)?;
         Ok(PageQuery(
             serde_urlencoded::from_str(query).unwrap_or_default(),
         ))

@@ -1,12 +1,13 @@
 //! Signing in and out.
 
-use axum::extract::State;
+use axum::extract::{RawQuery, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Deserialize;
 
-use super::{FormFields, PageQuery, base_context, render};
+use super::{FormFields, base_context, render};
 use crate::auth::password;
+use crate::domain::text;
 use crate::store::{Actor, sessions, throttle, users};
 use crate::web::AppState;
 use crate::web::auth::{
@@ -14,6 +15,7 @@ use crate::web::auth::{
 };
 use crate::web::error::{ApiError, PageError};
 use crate::web::extract::ClientAddr;
+use crate::web::redirect::same_site_path;
 
 /// The one message for every failed sign-in: it never tells whether the account exists, is
 /// deactivated, or only the password was wrong.
@@ -25,13 +27,19 @@ pub struct NextQuery {
     next: String,
 }
 
+/// Where sign-in leads when `next` names no path on this site.
+const DEFAULT_NEXT: &str = "/metrics";
+
 /// Only a path on this site may follow sign-in (no open redirect).
 fn safe_next(next: &str) -> &str {
-    if next.starts_with('/') && !next.starts_with("//") && !next.starts_with("/\\") {
-        next
-    } else {
-        "/metrics"
-    }
+    same_site_path(next).unwrap_or(DEFAULT_NEXT)
+}
+
+/// `next` from the query. Read leniently: whatever it holds, sign-in falls back to
+/// [`DEFAULT_NEXT`] unless it is a path on this site.
+fn next_param(query: Option<&str>) -> String {
+    let query: NextQuery = serde_urlencoded::from_str(query.unwrap_or("")).unwrap_or_default();
+    safe_next(&query.next).to_string()
 }
 
 fn signin_form(
@@ -53,9 +61,9 @@ pub async fn show(
     State(state): State<AppState>,
     MaybeSession(session): MaybeSession,
     headers: HeaderMap,
-    PageQuery(query): PageQuery<NextQuery>,
+    RawQuery(query): RawQuery,
 ) -> Response {
-    let next = safe_next(&query.next).to_string();
+    let next = next_param(query.as_deref());
     if session.is_some() {
         return Redirect::to(&next).into_response();
     }
@@ -83,9 +91,21 @@ pub async fn submit(
     form: FormFields,
 ) -> Result<Response, PageError> {
     let store = &state.store;
-    let username = form.get("username").trim().to_lowercase();
     let next = safe_next(form.get("next")).to_string();
     let csrf = read_cookie(&headers, SIGNIN_COOKIE).unwrap_or_default();
+    // No account's name holds a control character; such a request is malformed, not a
+    // failed sign-in, and never reaches the database.
+    if let Err(e) = text::no_control("username", form.get("username")) {
+        let message = e.to_string();
+        return Ok(signin_form(
+            &csrf,
+            &next,
+            "",
+            Some(&message),
+            StatusCode::BAD_REQUEST,
+        ));
+    }
+    let username = text::trim(form.get("username")).to_lowercase();
 
     // Throttled subjects are refused before any password is checked.
     let account_lock = throttle::locked_until(store, throttle::Scope::Account, &username).await?;
@@ -115,6 +135,8 @@ pub async fn submit(
     };
 
     if let (true, Some((user, _))) = (verified, found) {
+        // The answer is built before the session, so nothing can fail after it is made.
+        let mut response = Redirect::to(&next).into_response();
         throttle::clear(store, throttle::Scope::Account, &username).await?;
         // A fresh session id at every sign-in (OWASP ASVS 4.0.3 §3.2.1).
         if let Some(old) = existing {
@@ -123,7 +145,6 @@ pub async fn submit(
         let (secret, _) = sessions::create(store, &user).await?;
         // Sign-ins are rare enough to sweep away sessions that can no longer be used.
         sessions::purge_expired(store).await?;
-        let mut response = Redirect::to(&next).into_response();
         response.headers_mut().append(
             header::SET_COOKIE,
             cookie_header(&state, SESSION_COOKIE, &secret, false),
