@@ -1,9 +1,9 @@
 //! Connections that never wait on the database for longer than its timeout, and what the
 //! store knows about whether the database is answering at all.
 //!
-//! Every statement the store runs goes through a [`Db`]: a pooled connection or a write
+//! Every statement the store runs goes through a [`Db`]: a pooled connection or a
 //! transaction whose statements fail with a time-out error when the database sends nothing
-//! for the store's timeout (plus a second, so that the database's own timeouts, which say
+//! for twice the store's timeout and a second (so that the database's own timeouts, which say
 //! more, come first). That is what keeps a stalled PostgreSQL process from holding a request
 //! for as long as it is stalled. Errors that mean the database has gone away mark it down;
 //! while it is down, new requests are refused at once (see `Store::acquire`).

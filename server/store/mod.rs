@@ -138,8 +138,9 @@ impl Default for StoreSettings {
     }
 }
 
-/// Extra time a statement gets on the client side, so that the database's own timeout (which
-/// names the cause) fires first whenever the database is alive.
+/// Extra time a statement gets on the client side beyond the timeout, so that the database's
+/// own timeout (which names the cause) fires first whenever the database is alive, even on a
+/// loaded machine.
 const CLIENT_MARGIN: Duration = Duration::from_secs(1);
 /// After this long waiting for a pooled connection, the store asks the server directly
 /// whether it answers, so that requests do not wait the whole timeout on a server that is
@@ -403,8 +404,10 @@ impl Store {
         Ok(Db::begin(conn, begin, self.statement_limit(), self.health.clone()).await?)
     }
 
+    /// How long a statement may go without an answer before the store gives up on it: twice
+    /// the timeout and a margin, since the database's own timeout runs from a little later.
     fn statement_limit(&self) -> Duration {
-        self.settings.timeout + CLIENT_MARGIN
+        2 * self.settings.timeout + CLIENT_MARGIN
     }
 
     /// A pooled connection within the timeout: 503 `Busy` when every connection stayed in
