@@ -10,10 +10,11 @@ use crate::store::{Store, observations, usage};
 /// How often remembered uses are written.
 pub const FLUSH_EVERY: Duration = Duration::from_secs(5);
 
-/// A history being built that has not been written to for this long was abandoned (its
-/// upload writes every few seconds at most, even while waiting for the lock).
+/// A history being built that has not been written to for this long was abandoned: a live
+/// upload writes to it after each short transaction, and waits at most the timeout for the
+/// connection and the timeout again for the lock before the next one.
 pub fn abandoned_after(store: &Store) -> Duration {
-    Duration::from_secs(60).max(3 * store.settings().timeout)
+    2 * store.settings().timeout + Duration::from_secs(10)
 }
 
 /// Runs until `stop` completes, then writes what is left once more. The first round runs at

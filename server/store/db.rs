@@ -2,10 +2,11 @@
 //! store knows about whether the database is answering at all.
 //!
 //! Every statement the store runs goes through a [`Db`]: a pooled connection or a
-//! transaction whose statements fail with a time-out error when the database sends nothing
-//! for twice the store's timeout and a second (so that the database's own timeouts, which say
-//! more, come first). That is what keeps a stalled PostgreSQL process from holding a request
-//! for as long as it is stalled. Errors that mean the database has gone away mark it down;
+//! transaction. On PostgreSQL its statements fail with a time-out error when the server sends
+//! nothing for the store's timeout and a second (so that the server's own statement timeout,
+//! which says more, comes first when the server is alive): that is what keeps a stalled server
+//! (its processes stopped) from holding a request for as long as it is stalled. SQLite is a
+//! file in this process: its busy timeout bounds its waits, and nothing more is needed. Errors that mean the database has gone away mark it down;
 //! while it is down, new requests are refused at once (see `Store::acquire`).
 
 use std::pin::Pin;
@@ -141,8 +142,9 @@ enum Conn {
 /// A connection, or a transaction, whose every statement is bounded in time.
 pub struct Db {
     conn: Conn,
-    /// How long a statement may go without any answer.
-    limit: Duration,
+    /// How long a statement may go without any answer (`None`: as long as the database's own
+    /// timeouts allow).
+    limit: Option<Duration>,
     health: Arc<Health>,
 }
 
@@ -156,7 +158,11 @@ impl std::fmt::Debug for Db {
 }
 
 impl Db {
-    pub(super) fn pooled(conn: PoolConnection<Any>, limit: Duration, health: Arc<Health>) -> Db {
+    pub(super) fn pooled(
+        conn: PoolConnection<Any>,
+        limit: Option<Duration>,
+        health: Arc<Health>,
+    ) -> Db {
         Db {
             conn: Conn::Pooled(conn),
             limit,
@@ -168,7 +174,7 @@ impl Db {
     pub(super) async fn begin(
         conn: PoolConnection<Any>,
         statement: Option<&'static str>,
-        limit: Duration,
+        limit: Option<Duration>,
         health: Arc<Health>,
     ) -> Result<Db, sqlx::Error> {
         let begin = Transaction::begin(conn, statement.map(sqlx::SqlSafeStr::into_sql_str));
@@ -198,13 +204,16 @@ impl Db {
 
 /// Runs `work` for at most `limit`, noting what its result says about the database.
 async fn bounded<T>(
-    limit: Duration,
+    limit: Option<Duration>,
     health: &Health,
     work: impl Future<Output = Result<T, sqlx::Error>>,
 ) -> Result<T, sqlx::Error> {
-    let result = tokio::time::timeout(limit, work)
-        .await
-        .unwrap_or_else(|_| Err(timed_out()));
+    let result = match limit {
+        Some(limit) => tokio::time::timeout(limit, work)
+            .await
+            .unwrap_or_else(|_| Err(timed_out())),
+        None => work.await,
+    };
     health.note(&result);
     result
 }
@@ -212,8 +221,8 @@ async fn bounded<T>(
 /// A result stream that ends with a time-out error when no item arrives within `limit`.
 struct BoundedStream<'e, T> {
     inner: BoxStream<'e, Result<T, sqlx::Error>>,
-    limit: Duration,
-    timer: Pin<Box<tokio::time::Sleep>>,
+    /// The limit and the timer of the next item.
+    limit: Option<(Duration, Pin<Box<tokio::time::Sleep>>)>,
     health: Arc<Health>,
     ended: bool,
 }
@@ -231,19 +240,25 @@ impl<T> Stream for BoundedStream<'_, T> {
                     Some(result) => self.health.note(result),
                     None => self.ended = true,
                 }
-                let next = tokio::time::Instant::now() + self.limit;
-                self.timer.as_mut().reset(next);
+                if let Some((limit, timer)) = &mut self.limit {
+                    let next = tokio::time::Instant::now() + *limit;
+                    timer.as_mut().reset(next);
+                }
                 Poll::Ready(item)
             }
-            Poll::Pending => match self.timer.as_mut().poll(cx) {
-                Poll::Ready(()) => {
-                    self.ended = true;
-                    let e = timed_out();
-                    self.health.note::<()>(&Err(timed_out()));
-                    Poll::Ready(Some(Err(e)))
+            Poll::Pending => {
+                let Some((_, timer)) = &mut self.limit else {
+                    return Poll::Pending;
+                };
+                match timer.as_mut().poll(cx) {
+                    Poll::Ready(()) => {
+                        self.ended = true;
+                        self.health.note::<()>(&Err(timed_out()));
+                        Poll::Ready(Some(Err(timed_out())))
+                    }
+                    Poll::Pending => Poll::Pending,
                 }
-                Poll::Pending => Poll::Pending,
-            },
+            }
         }
     }
 }
@@ -259,13 +274,20 @@ impl<'c> Executor<'c> for &'c mut Db {
         'c: 'e,
         E: 'q + Execute<'q, Any>,
     {
-        let limit = self.limit;
         let health = self.health.clone();
+        let Some(limit) = self.limit else {
+            let inner = self.raw().fetch_many(query);
+            return Box::pin(BoundedStream {
+                inner,
+                limit: None,
+                health,
+                ended: false,
+            });
+        };
         let inner = self.raw().fetch_many(query);
         Box::pin(BoundedStream {
             inner,
-            limit,
-            timer: Box::pin(tokio::time::sleep(limit)),
+            limit: Some((limit, Box::pin(tokio::time::sleep(limit)))),
             health,
             ended: false,
         })

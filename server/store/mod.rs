@@ -84,6 +84,14 @@ impl From<sqlx::Error> for StoreError {
             sqlx::Error::Database(ref d) if is_busy(d.code().as_deref()) => {
                 StoreError::Busy(d.message().to_string())
             }
+            // A backstop behind the text rules of `domain::text`: PostgreSQL refuses a NUL or
+            // bytes that are not UTF-8 in text (SQLSTATE 22021); that is bad input, not a fault.
+            sqlx::Error::Database(ref d) if d.code().as_deref() == Some("22021") => {
+                StoreError::Invalid(Problems::single(
+                    "text",
+                    "text must not contain NUL or other control characters",
+                ))
+            }
             other => StoreError::Database(other),
         }
     }
@@ -138,9 +146,8 @@ impl Default for StoreSettings {
     }
 }
 
-/// Extra time a statement gets on the client side beyond the timeout, so that the database's
-/// own timeout (which names the cause) fires first whenever the database is alive, even on a
-/// loaded machine.
+/// Extra time a statement gets on the client side beyond the timeout, so that PostgreSQL's
+/// own statement timeout (which names the cause) fires first whenever the server is alive.
 const CLIENT_MARGIN: Duration = Duration::from_secs(1);
 /// After this long waiting for a pooled connection, the store asks the server directly
 /// whether it answers, so that requests do not wait the whole timeout on a server that is
@@ -404,10 +411,14 @@ impl Store {
         Ok(Db::begin(conn, begin, self.statement_limit(), self.health.clone()).await?)
     }
 
-    /// How long a statement may go without an answer before the store gives up on it: twice
-    /// the timeout and a margin, since the database's own timeout runs from a little later.
-    fn statement_limit(&self) -> Duration {
-        2 * self.settings.timeout + CLIENT_MARGIN
+    /// How long a statement may go without an answer before the store gives up on it: on
+    /// PostgreSQL the timeout and a margin (its own statement timeout runs from a little
+    /// later); SQLite needs none beyond its busy timeout.
+    fn statement_limit(&self) -> Option<Duration> {
+        match self.backend {
+            Backend::Sqlite => None,
+            Backend::Postgres => Some(self.settings.timeout + CLIENT_MARGIN),
+        }
     }
 
     /// A pooled connection within the timeout: 503 `Busy` when every connection stayed in
@@ -428,21 +439,23 @@ impl Store {
                     return Err(gone());
                 }
                 let rest = self.settings.timeout.saturating_sub(PROBE_AFTER);
-                match tokio::time::timeout(rest, &mut acquire).await {
-                    Ok(result) => result,
-                    Err(_) if pool.size() < pool.options().get_max_connections() => {
-                        return Err(gone());
-                    }
-                    Err(_) => {
-                        return Err(StoreError::Busy(
-                            "every database connection stayed in use".into(),
-                        ));
-                    }
-                }
+                tokio::time::timeout(rest, &mut acquire)
+                    .await
+                    .unwrap_or(Err(sqlx::Error::PoolTimedOut))
             }
         };
-        self.health.note(&result);
-        Ok(result?)
+        match result {
+            // The pool's own deadline (a little later) may come first on a loaded machine:
+            // either way the wait ran out while the server answered the direct check, so
+            // every connection stayed in use.
+            Err(sqlx::Error::PoolTimedOut) => Err(StoreError::Busy(
+                "every database connection stayed in use".into(),
+            )),
+            result => {
+                self.health.note(&result);
+                Ok(result?)
+            }
+        }
     }
 
     /// True when the database answers a trivial query (within about a second when it is

@@ -1,8 +1,11 @@
 //! Faults an operator meets: the database locked by another process for longer than the
-//! timeout, reads while writers wait. Each case checks status codes and data, never time.
+//! timeout, reads while writers wait, large and abandoned uploads, a server killed in the
+//! middle of writing. Each case checks status codes and data, never time.
 
 use std::io::{BufRead, BufReader, Write};
 use std::process::{Child, Command, Stdio};
+use std::sync::Arc;
+use std::sync::atomic::Ordering;
 
 use cutpoints::store::tokens::Scope;
 use serde_json::{Value, json};
@@ -346,5 +349,121 @@ crate::on_both_backends! { with TestApp::spawn_impatient;
         let totals = [ra.1["total"].as_u64().unwrap(), rb.1["total"].as_u64().unwrap()];
         assert!(totals.contains(&4000), "{totals:?}");
         assert_eq!(leftovers(&team.app).await, 0);
+    }
+}
+
+/// `cutpoints serve` as its own process on the app's database and signing key, answering
+/// on `port` with a one-second database timeout.
+fn serve_process(app: &TestApp, port: u16) -> Child {
+    Command::new(env!("CARGO_BIN_EXE_cutpoints"))
+        .args([
+            "serve",
+            "--database-url",
+            &app.store_url,
+            "--bind",
+            &format!("127.0.0.1:{port}"),
+            "--signing-key",
+            app.key_file.to_str().unwrap(),
+            "--db-timeout",
+            "1",
+            "--http-threads",
+            "2",
+        ])
+        .env_remove("CUTPOINTS_DATABASE_URL")
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("run cutpoints serve")
+}
+
+async fn until_serving(client: &reqwest::Client, base: &str) {
+    for _ in 0..600 {
+        if client
+            .get(format!("{base}/healthz"))
+            .send()
+            .await
+            .is_ok_and(|r| r.status() == 200)
+        {
+            return;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+    }
+    panic!("cutpoints serve did not start");
+}
+
+crate::on_both_backends! {
+    async fn a_server_killed_during_writes_restarts_with_every_row_accounted_for(app) {
+        let team = Team::new(app).await;
+        let (status, p) = team.propose("tomas", hib(40.0, 60.0, 80.0, 90.0, "first")).await;
+        assert_eq!(status, 201, "{p}");
+        let id = p["id"].as_i64().unwrap();
+        let port = std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port();
+        let base = format!("http://127.0.0.1:{port}");
+        let mut server = serve_process(&team.app, port);
+        until_serving(&team.app.http, &base).await;
+
+        // Four writers and a large upload through the separate process, then SIGKILL.
+        let acknowledged = Arc::new(std::sync::atomic::AtomicUsize::new(0));
+        let mut writers = tokio::task::JoinSet::new();
+        for w in 0..4 {
+            let (client, base, token, acknowledged) = (team.app.http.clone(), base.clone(), team.token_of("hana"), acknowledged.clone());
+            writers.spawn(async move {
+                for n in 0.. {
+                    let sent = client
+                        .post(format!("{base}/api/v1/proposals/{id}/comments"))
+                        .bearer_auth(&token)
+                        .json(&json!({"body": format!("comment {w}.{n}")}))
+                        .send()
+                        .await;
+                    match sent {
+                        Ok(r) if r.status() == 201 => { acknowledged.fetch_add(1, Ordering::SeqCst); }
+                        Ok(r) => assert!(r.status() == 503, "{}", r.status()),
+                        Err(_) => return, // the server is gone
+                    }
+                }
+            });
+        }
+        let upload = {
+            let req = team.app.http
+                .post(format!("{base}/api/v1/metrics/{METRIC}/observations?mode=replace"))
+                .bearer_auth(team.token_of("tomas"))
+                .header("content-type", "text/csv")
+                .body(hourly_csv(0, 1_000_000, 4.0));
+            tokio::spawn(async move { req.send().await.map(|r| r.status().as_u16()) })
+        };
+        // Kill once the upload has written part of its history and comments have been taken.
+        let mut polls = 0;
+        while cutpoints::store::observations::not_live(&team.app.store).await.unwrap() == 0
+            || acknowledged.load(Ordering::SeqCst) < 10
+        {
+            polls += 1;
+            assert!(polls < 6000, "the load never got going");
+            tokio::time::sleep(std::time::Duration::from_millis(5)).await;
+        }
+        server.kill().unwrap();
+        server.wait().unwrap();
+        while writers.join_next().await.is_some() {}
+        assert!(upload.await.unwrap().is_err(), "the upload was cut off");
+
+        // Restarted on the same database: the record and the tables agree, every acknowledged
+        // write is there, and the rows of the cut-off upload are cleared by its upkeep.
+        let mut server = serve_process(&team.app, port);
+        until_serving(&team.app.http, &base).await;
+        let out = crate::cli::cutpoints(&["audit", "verify", "--database-url", &team.app.store_url]);
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        let stored = team.get(id).await["comments"].as_array().unwrap().len();
+        assert!(stored >= acknowledged.load(Ordering::SeqCst), "{stored} stored");
+        let mut polls = 0;
+        while sqlx::query_scalar::<_, i64>("SELECT COUNT(*) FROM histories WHERE state <> 'live'")
+            .fetch_one(team.app.store.pool()).await.unwrap() > 0
+        {
+            polls += 1;
+            assert!(polls < 1200, "the cut-off upload's rows were never cleared");
+            tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+        }
+        let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
+        assert_eq!(listed["observations"].as_array().unwrap().len(), 0, "the cut-off upload never became live");
+        server.kill().unwrap();
+        server.wait().unwrap();
     }
 }

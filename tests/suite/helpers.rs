@@ -134,6 +134,34 @@ impl TestApp {
                 (url, None, Some((admin_url, name)))
             }
         };
+        Some(Self::start(url, folder, postgres, backend, config, settings, demo).await)
+    }
+
+    /// The app on a database of the caller's (a throwaway cluster), which it neither creates
+    /// nor drops.
+    pub async fn spawn_on(url: &str, backend: Backend, settings: StoreSettings) -> TestApp {
+        let (app, _) = Self::start(
+            url.to_string(),
+            None,
+            None,
+            backend,
+            WebConfig::default(),
+            settings,
+            false,
+        )
+        .await;
+        app
+    }
+
+    async fn start(
+        url: String,
+        folder: Option<tempfile::TempDir>,
+        postgres: Option<(String, String)>,
+        backend: Backend,
+        config: WebConfig,
+        settings: StoreSettings,
+        demo: bool,
+    ) -> (TestApp, Vec<User>) {
         let store = Store::open_with(&url, settings)
             .await
             .expect("open and migrate");
@@ -172,7 +200,7 @@ impl TestApp {
             _folder: folder,
             postgres,
         };
-        Some((app, people))
+        (app, people)
     }
 
     pub fn url(&self, path: &str) -> String {
