@@ -45,9 +45,9 @@ run() {
     owner="$($bin token issue --username owner --scope write --database-url "$db")"
     critic="$($bin token issue --username critic --scope write --database-url "$db")"
     for _ in $(seq 100); do curl -sf "http://127.0.0.1:$port/healthz" >/dev/null && break; sleep 0.1; done
-    python3 - "http://127.0.0.1:$port" "$owner" "$critic" "$work/history.csv" <<'PY'
-import json, statistics, sys, threading, time, urllib.error, urllib.request
-base, owner, critic, path = sys.argv[1:5]
+    python3 - "http://127.0.0.1:$port" "$owner" "$critic" "$work/history.csv" "$db" <<'PY'
+import json, sqlite3, statistics, subprocess, sys, threading, time, urllib.error, urllib.request
+base, owner, critic, path, db = sys.argv[1:6]
 
 def call(method, url, token, body=None, ctype="application/json"):
     data = body if isinstance(body, bytes) or body is None else json.dumps(body).encode()
@@ -109,6 +109,51 @@ status, report = phase("during upload", lambda: call(
     "POST", "/api/v1/metrics/bench.hourly/observations?mode=replace", owner, body, "text/csv"))
 assert status == 200, (status, report)
 print(f"  upload answered 200: {report['total']} periods stored, {report['removed']} removed")
+
+# A small upload, then the same beside the rows of 1,000,000-row uploads that died half way
+# (written straight into the database as such an upload leaves them; kept from any sweep
+# during the measurement).
+def sql(statement):
+    if db.startswith("sqlite://"):
+        c = sqlite3.connect(db[len("sqlite://"):])
+        c.executescript(statement)
+        c.close()
+    else:
+        subprocess.run(["psql", "-q", "-v", "ON_ERROR_STOP=1", db, "-c", statement], check=True)
+def tables():
+    if db.startswith("sqlite://"):
+        c = sqlite3.connect(db[len("sqlite://"):])
+        names = {r[0] for r in c.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        c.close()
+        return names
+    out = subprocess.run(["psql", "-Atc", "SELECT tablename FROM pg_tables", db], check=True, capture_output=True, text=True)
+    return set(out.stdout.split())
+sqlite = db.startswith("sqlite://")
+numbers = ("WITH RECURSIVE n(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM n WHERE i < 999999) SELECT i FROM n"
+           if sqlite else "SELECT i FROM generate_series(0, 999999) AS g(i)")
+period = "'1000-01-01T00:00:00.' || printf('%06d', i) || 'Z'" if sqlite else "'1000-01-01T00:00:00.' || lpad(i::text, 6, '0') || 'Z'"
+if "histories" in tables():
+    leftovers = (
+        "INSERT INTO histories (metric_id, state, rows, touched_at) "
+        "SELECT id, 'building', 0, '9999-01-01T00:00:00.000000Z' FROM metrics WHERE key = 'bench.hourly';"
+        f"INSERT INTO observations (history_id, period_start, value) SELECT (SELECT MAX(id) FROM histories), {period}, 1 FROM ({numbers}) AS n;")
+else:
+    leftovers = (
+        "INSERT INTO observation_staging (upload, period_start, value, created_at) "
+        f"SELECT 'died-half-way', {period}, 1, '9999-01-01T00:00:00.000000Z' FROM ({numbers}) AS n;")
+small = b"period_start,value\n2400-01-01,1\n2400-01-02,2\n"
+def small_uploads():
+    times = []
+    for _ in range(15):
+        t = time.perf_counter()
+        status, r = call("POST", "/api/v1/metrics/bench.hourly/observations?mode=merge", owner, small, "text/csv")
+        assert status == 200, (status, r)
+        times.append(time.perf_counter() - t)
+    return statistics.median(times) * 1000
+clean = small_uploads()
+sql(leftovers)
+dirty = small_uploads()
+print(f"  2-row upload    {clean:7.1f} ms; beside 1,000,000 rows of an upload that died: {dirty:7.1f} ms (median of 15)")
 PY
     kill "$server"
     wait "$server" 2>/dev/null || true

@@ -7,15 +7,13 @@ use serde_json::Value;
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
+use super::events::Stop;
 use super::{Db, Store, StoreResult};
 use crate::audit::replay::{
     Difference, Fields, Register, Replayer, RowKey, Unreadable, float, int, list, opt_int,
     opt_text, shapes_rows, stored_roles, text,
 };
-use crate::audit::{Break, Entry, EventParts, Verifier};
-
-/// Events read at a time.
-const PAGE: i64 = 10_000;
+use crate::audit::{Break, Entry};
 
 /// What the full check found.
 #[derive(Debug)]
@@ -38,60 +36,19 @@ pub enum Finding {
 /// snapshot of the database, so that writes made meanwhile cannot look like differences.
 pub async fn check(store: &Store, known_head: Option<(i64, String)>) -> StoreResult<Finding> {
     let mut db = store.begin_snapshot().await?;
-    let mut verifier = Verifier::new(known_head);
     let mut replayer = Replayer::new();
-    let mut after = 0;
-    loop {
-        let rows = sqlx::query(
-            "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
-             WHERE seq > $1 ORDER BY seq LIMIT $2",
-        )
-        .bind(after)
-        .bind(PAGE)
-        .fetch_all(&mut db)
-        .await?;
-        for row in &rows {
-            let seq: i64 = row.try_get("seq")?;
-            let at: String = row.try_get("at")?;
-            let actor: String = row.try_get("actor")?;
-            let action: String = row.try_get("action")?;
-            let subject: String = row.try_get("subject")?;
-            let payload: String = row.try_get("payload")?;
-            let prev_hash: String = row.try_get("prev_hash")?;
-            let hash: String = row.try_get("hash")?;
-            let parts = EventParts {
-                seq,
-                at: &at,
-                actor: &actor,
-                action: &action,
-                subject: &subject,
-                payload_jcs: &payload,
-            };
-            if let Err(b) = verifier.push_parts(&parts, &prev_hash, &hash) {
-                return Ok(Finding::Chain(b));
-            }
-            if shapes_rows(&action) {
-                let entry: Entry = super::events::event_from_row(row)?;
-                if let Err(u) = replayer.apply(&entry.event) {
-                    return Ok(Finding::Unreadable(u));
-                }
-            }
-            after = seq;
+    let walked = super::events::walk(&mut db, known_head, |row, parts| {
+        if !shapes_rows(parts.action) {
+            return Ok(Ok(()));
         }
-        if (rows.len() as i64) < PAGE {
-            break;
-        }
-    }
-    let (head_seq, head_hash) = super::events::head(&mut db).await?;
-    let (events, head) = match verifier.finish() {
-        Ok((_, hash)) if head_seq != after || hash != head_hash => {
-            return Ok(Finding::Chain(Break::Head {
-                head_seq,
-                last_seq: after,
-            }));
-        }
+        let entry: Entry = super::events::event_from_row(row)?;
+        Ok(replayer.apply(&entry.event))
+    })
+    .await?;
+    let (events, head) = match walked {
         Ok(done) => done,
-        Err(b) => return Ok(Finding::Chain(b)),
+        Err(Stop::Break(b)) => return Ok(Finding::Chain(b)),
+        Err(Stop::Visitor(u)) => return Ok(Finding::Unreadable(u)),
     };
     let stored = read(&mut db).await?;
     let differences = crate::audit::replay::compare(&stored, &replayer.finish());

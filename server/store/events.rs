@@ -232,19 +232,31 @@ pub async fn by_seq(
     Ok(out)
 }
 
-/// How many events `verify` reads at a time.
-const VERIFY_PAGE: i64 = 10_000;
+/// How many events a walk of the chain reads at a time.
+const WALK_PAGE: i64 = 10_000;
 
-/// Recomputes the whole chain from the database, page by page, and compares its end with the
-/// recorded head (and with a head an auditor held earlier, if given). `Ok(Ok((events, head)))`
-/// when everything holds; `Ok(Err(break))` names the first event that does not.
-pub async fn verify(
-    store: &super::Store,
+/// Why a walk of the chain stopped early.
+#[derive(Debug)]
+pub enum Stop<E> {
+    /// The chain does not verify here.
+    Break(crate::audit::Break),
+    /// `visit` refused this event.
+    Visitor(E),
+}
+
+/// Recomputes the whole chain in `conn`, page by page, handing every event row to `visit`
+/// as it goes, and compares the chain's end with the recorded head (and with a head an
+/// auditor held earlier, if given). The number of events and the head when everything holds;
+/// otherwise the first event that does not, or what `visit` said.
+pub(super) async fn walk<E>(
+    conn: &mut Db,
     known_head: Option<(i64, String)>,
-) -> StoreResult<Result<(i64, String), crate::audit::Break>> {
-    let mut conn = store.read().await?;
+    mut visit: impl FnMut(
+        &sqlx::any::AnyRow,
+        &crate::audit::EventParts<'_>,
+    ) -> StoreResult<Result<(), E>>,
+) -> StoreResult<Result<(i64, String), Stop<E>>> {
     let mut verifier = crate::audit::Verifier::new(known_head);
-    let mut after = 0;
     let mut last_seq = 0;
     loop {
         // The stored text as it is: the payload is already canonical, so nothing is parsed.
@@ -252,9 +264,9 @@ pub async fn verify(
             "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
              WHERE seq > $1 ORDER BY seq LIMIT $2",
         )
-        .bind(after)
-        .bind(VERIFY_PAGE)
-        .fetch_all(&mut conn)
+        .bind(last_seq)
+        .bind(WALK_PAGE)
+        .fetch_all(&mut *conn)
         .await?;
         for row in &rows {
             let seq: i64 = row.try_get("seq")?;
@@ -274,24 +286,42 @@ pub async fn verify(
                 payload_jcs: &payload,
             };
             if let Err(b) = verifier.push_parts(&parts, &prev_hash, &hash) {
-                return Ok(Err(b));
+                return Ok(Err(Stop::Break(b)));
+            }
+            if let Err(e) = visit(row, &parts)? {
+                return Ok(Err(Stop::Visitor(e)));
             }
             last_seq = seq;
         }
-        if rows.len() as i64 == VERIFY_PAGE {
-            after = last_seq;
-        } else {
+        if (rows.len() as i64) < WALK_PAGE {
             break;
         }
     }
-    let (head_seq, head_hash) = head(&mut conn).await?;
-    let result = verifier.finish();
-    if let Ok((_, hash)) = &result
-        && (head_seq != last_seq || *hash != head_hash)
-    {
-        return Ok(Err(crate::audit::Break::Head { head_seq, last_seq }));
-    }
-    Ok(result)
+    let (head_seq, head_hash) = head(conn).await?;
+    Ok(match verifier.finish() {
+        Ok((_, hash)) if head_seq != last_seq || hash != head_hash => {
+            Err(Stop::Break(crate::audit::Break::Head {
+                head_seq,
+                last_seq,
+            }))
+        }
+        Ok(done) => Ok(done),
+        Err(b) => Err(Stop::Break(b)),
+    })
+}
+
+/// The chain alone (no replay; `audited::check` does both): `Ok(Ok((events, head)))` when it
+/// holds, `Ok(Err(break))` naming the first event that does not.
+pub async fn verify(
+    store: &super::Store,
+    known_head: Option<(i64, String)>,
+) -> StoreResult<Result<(i64, String), crate::audit::Break>> {
+    let mut conn = store.read().await?;
+    let walked = walk(&mut conn, known_head, |_, _| Ok(Ok::<(), ()>(()))).await?;
+    Ok(walked.map_err(|stop| match stop {
+        Stop::Break(b) => b,
+        Stop::Visitor(()) => unreachable!("the visitor refuses nothing"),
+    }))
 }
 
 /// Number of events with a given action (used by tests and the throttle summary).

@@ -187,24 +187,12 @@ async fn with_history(backend: Backend) -> Option<TestApp> {
 }
 
 async fn exec(app: &TestApp, sql: &str) {
-    sqlx::query(sqlx::AssertSqlSafe(sql.to_string()))
-        .execute(app.store.pool())
-        .await
-        .unwrap_or_else(|e| panic!("{sql}: {e}"));
+    app.exec(sql).await;
 }
 
 /// What an attacker with database access does first.
 async fn drop_triggers(app: &TestApp) {
-    match app.backend {
-        Backend::Sqlite => {
-            exec(app, "DROP TRIGGER events_no_update").await;
-            exec(app, "DROP TRIGGER events_no_delete").await;
-        }
-        Backend::Postgres => {
-            exec(app, "DROP TRIGGER events_no_update ON events").await;
-            exec(app, "DROP TRIGGER events_no_truncate ON events").await;
-        }
-    }
+    app.drop_change_guards(&["events"]).await;
 }
 
 async fn entry(app: &TestApp, seq: i64) -> Entry {

@@ -10,10 +10,7 @@ use crate::helpers::{Backend, TestApp};
 use crate::workflow_support::{METRIC, Team, hib};
 
 async fn exec(app: &TestApp, sql: &str) {
-    sqlx::query(sqlx::AssertSqlSafe(sql.to_string()))
-        .execute(app.store.pool())
-        .await
-        .unwrap_or_else(|e| panic!("{sql}: {e}"));
+    app.exec(sql).await;
 }
 
 async fn refused(app: &TestApp, sql: &str) -> String {
@@ -29,28 +26,8 @@ const WRITTEN_ONCE: [&str; 5] = ["revisions", "reviews", "signoffs", "comments",
 
 /// What an attacker with the database owner's rights does first.
 async fn drop_guards(app: &TestApp) {
-    for table in WRITTEN_ONCE {
-        match app.backend {
-            Backend::Sqlite => {
-                exec(app, &format!("DROP TRIGGER {table}_no_update")).await;
-                exec(app, &format!("DROP TRIGGER {table}_no_delete")).await;
-            }
-            Backend::Postgres => {
-                exec(app, &format!("DROP TRIGGER {table}_no_change ON {table}")).await;
-                exec(app, &format!("DROP TRIGGER {table}_no_truncate ON {table}")).await;
-            }
-        }
-    }
-    match app.backend {
-        Backend::Sqlite => {
-            exec(app, "DROP TRIGGER events_no_update").await;
-            exec(app, "DROP TRIGGER events_no_delete").await;
-        }
-        Backend::Postgres => {
-            exec(app, "DROP TRIGGER events_no_update ON events").await;
-            exec(app, "DROP TRIGGER events_no_truncate ON events").await;
-        }
-    }
+    app.drop_change_guards(&WRITTEN_ONCE).await;
+    app.drop_change_guards(&["events"]).await;
 }
 
 /// A register built through the real workflow: a metric with an agreed version (40, 60,

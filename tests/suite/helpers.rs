@@ -240,6 +240,34 @@ impl TestApp {
         browser
     }
 
+    /// Runs SQL on the app's database as its owner (for tests that play an attacker).
+    pub async fn exec(&self, sql: &str) {
+        sqlx::query(sqlx::AssertSqlSafe(sql.to_string()))
+            .execute(self.store.pool())
+            .await
+            .unwrap_or_else(|e| panic!("{sql}: {e}"));
+    }
+
+    /// Drops the triggers that refuse changes to `tables` (`events` and the tables whose rows
+    /// are written once): what someone with the database owner's rights does first.
+    pub async fn drop_change_guards(&self, tables: &[&str]) {
+        for table in tables {
+            let (row, whole) = match (self.backend, *table) {
+                (Backend::Sqlite, t) => (format!("{t}_no_update"), format!("{t}_no_delete")),
+                (Backend::Postgres, "events") => (
+                    "events_no_update ON events".into(),
+                    "events_no_truncate ON events".into(),
+                ),
+                (Backend::Postgres, t) => (
+                    format!("{t}_no_change ON {t}"),
+                    format!("{t}_no_truncate ON {t}"),
+                ),
+            };
+            self.exec(&format!("DROP TRIGGER {row}")).await;
+            self.exec(&format!("DROP TRIGGER {whole}")).await;
+        }
+    }
+
     /// Every event, in order.
     pub async fn events(&self) -> Vec<cutpoints::audit::Entry> {
         events::list(&self.store, 0, 1_000_000, None).await.unwrap()

@@ -135,6 +135,61 @@ async fn check(team: &Team, id: i64, answers: &[Answer]) {
     assert_eq!(v["ok"], true, "{v}");
 }
 
+/// Four clients reading and writing while the test breaks and mends the database.
+struct Load {
+    down: Arc<AtomicBool>,
+    stop: Arc<AtomicBool>,
+    workers: Vec<tokio::task::JoinHandle<Vec<Answer>>>,
+}
+
+impl Load {
+    /// Starts the clients; each stops at [`Load::finish`], or after `down_answers` answers to
+    /// requests sent while the database was down.
+    fn start(team: &Arc<Team>, id: i64, down_answers: usize) -> Load {
+        let down = Arc::new(AtomicBool::new(false));
+        let stop = Arc::new(AtomicBool::new(false));
+        let workers = (0..4)
+            .map(|who| {
+                tokio::spawn(load(
+                    team.clone(),
+                    id,
+                    who,
+                    down.clone(),
+                    stop.clone(),
+                    down_answers,
+                ))
+            })
+            .collect();
+        Load {
+            down,
+            stop,
+            workers,
+        }
+    }
+
+    fn set_down(&self, down: bool) {
+        self.down.store(down, Ordering::SeqCst);
+    }
+
+    async fn finish(self) -> Vec<Answer> {
+        self.stop.store(true, Ordering::SeqCst);
+        let mut answers = Vec::new();
+        for w in self.workers {
+            answers.extend(w.await.unwrap());
+        }
+        answers
+    }
+}
+
+async fn healthz(team: &Team) -> reqwest::Response {
+    team.app
+        .http
+        .get(team.app.url("/healthz"))
+        .send()
+        .await
+        .unwrap()
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn postgres_stopped_and_started_again_under_load_answers_503_and_recovers() {
     let Some(cluster) = Cluster::start() else {
@@ -142,56 +197,26 @@ async fn postgres_stopped_and_started_again_under_load_answers_503_and_recovers(
     };
     let cluster = Arc::new(cluster);
     let (team, id) = team_on(&cluster).await;
-    let down = Arc::new(AtomicBool::new(false));
-    let stop = Arc::new(AtomicBool::new(false));
-    let workers: Vec<_> = (0..4)
-        .map(|who| {
-            tokio::spawn(load(
-                team.clone(),
-                id,
-                who,
-                down.clone(),
-                stop.clone(),
-                usize::MAX,
-            ))
-        })
-        .collect();
+    let load = Load::start(&team, id, usize::MAX);
     tokio::time::sleep(std::time::Duration::from_millis(500)).await;
     // The administrator's fast shutdown: sessions end with SQLSTATE 57P01.
-    down.store(true, Ordering::SeqCst);
+    load.set_down(true);
     let c = cluster.clone();
     tokio::task::spawn_blocking(move || c.stop("fast"))
         .await
         .unwrap();
     tokio::time::sleep(std::time::Duration::from_secs(2)).await;
-    let r = team
-        .app
-        .http
-        .get(team.app.url("/healthz"))
-        .send()
-        .await
-        .unwrap();
+    let r = healthz(&team).await;
     assert_eq!(r.status(), 503, "healthz while the database is down");
     assert!(r.headers().contains_key("retry-after"));
     let c = cluster.clone();
     tokio::task::spawn_blocking(move || c.start_again())
         .await
         .unwrap();
-    down.store(false, Ordering::SeqCst);
+    load.set_down(false);
     until_recovered(&team, id).await;
-    stop.store(true, Ordering::SeqCst);
-    let mut answers = Vec::new();
-    for w in workers {
-        answers.extend(w.await.unwrap());
-    }
-    let r = team
-        .app
-        .http
-        .get(team.app.url("/healthz"))
-        .send()
-        .await
-        .unwrap();
-    assert_eq!(r.status(), 200, "healthz after recovery");
+    let answers = load.finish().await;
+    assert_eq!(healthz(&team).await.status(), 200, "healthz after recovery");
     check(&team, id, &answers).await;
 }
 
@@ -201,34 +226,26 @@ async fn a_stalled_postgres_is_answered_with_503_while_it_stalls_and_recovers() 
         return;
     };
     let (team, id) = team_on(&cluster).await;
-    let down = Arc::new(AtomicBool::new(false));
-    let stop = Arc::new(AtomicBool::new(false));
-    let workers: Vec<_> = (0..4)
-        .map(|who| tokio::spawn(load(team.clone(), id, who, down.clone(), stop.clone(), 3)))
-        .collect();
+    let load = Load::start(&team, id, 3);
     tokio::time::sleep(std::time::Duration::from_millis(500)).await;
     // Every server process stopped: connections stay open and nothing answers. The stall
-    // lasts until every worker has had three answers to requests sent during it, so a
+    // lasts until every client has had three answers to requests sent during it, so a
     // request that waited for the stall to end would hold the test here.
     cluster.pause();
-    down.store(true, Ordering::SeqCst);
-    let r = team
-        .app
-        .http
-        .get(team.app.url("/healthz"))
-        .send()
-        .await
-        .unwrap();
-    assert_eq!(r.status(), 503, "healthz while the database stalls");
+    load.set_down(true);
+    assert_eq!(
+        healthz(&team).await.status(),
+        503,
+        "healthz while the database stalls"
+    );
     let mut answers = Vec::new();
-    for w in workers {
+    for w in load.workers {
         answers.extend(w.await.unwrap());
     }
     let stalled: Vec<&Answer> = answers.iter().filter(|a| a.while_down).collect();
     assert!(!stalled.is_empty());
     assert!(stalled.iter().all(|a| a.status == 503), "{stalled:?}");
     cluster.resume();
-    down.store(false, Ordering::SeqCst);
     until_recovered(&team, id).await;
     check(&team, id, &answers).await;
 }
