@@ -127,6 +127,11 @@ pub async fn store_rows(
 ) -> OpResult<UploadReport> {
     let metric = metrics::get(store, key).await?;
     may_upload(&by, &metric)?;
+    if mode == Mode::Merge && parsed.len() <= rows::ROWS_PER_TRANSACTION {
+        let report = merge_small(store, &by, key, parsed, sha256).await?;
+        progress(parsed.len() as u64);
+        return Ok(report);
+    }
     for _ in 0..MERGE_ATTEMPTS {
         let base = rows::live(&mut store.read().await?, metric.id).await?;
         let building = Building::start(store, metric.id).await?;
@@ -196,6 +201,76 @@ struct Upload<'a> {
     sha256: &'a str,
 }
 
+/// A merge of a few rows, straight into the live history under the write lock, with its
+/// event.
+async fn merge_small(
+    store: &Store,
+    by: &Uploader<'_>,
+    key: &str,
+    parsed: &[Observation],
+    sha256: &str,
+) -> OpResult<UploadReport> {
+    let mut w = store.begin_write().await?;
+    let metric = metrics::get_for_update(&mut w, key).await?;
+    may_upload(by, &metric)?;
+    let written = rows::merge_into_live(&mut w, metric.id, parsed).await?;
+    let report = record_upload(
+        &mut w,
+        by,
+        &metric,
+        Mode::Merge,
+        parsed.len() as u64,
+        sha256,
+        written,
+    )
+    .await?;
+    w.commit().await?;
+    Ok(report)
+}
+
+/// Records the upload's event in its write transaction; the report the API answers.
+async fn record_upload(
+    w: &mut crate::store::WriteTx,
+    by: &Uploader<'_>,
+    metric: &Metric,
+    mode: Mode,
+    uploaded: u64,
+    sha256: &str,
+    written: Written,
+) -> OpResult<UploadReport> {
+    let actor = match by {
+        Uploader::User(u) => Actor::User(u.username.clone()),
+        Uploader::Cli => Actor::Cli,
+    };
+    let event_seq = w
+        .record(
+            &actor,
+            "observations.uploaded",
+            &metric.subject(),
+            serde_json::json!({
+                "mode": mode.as_str(),
+                "rows": uploaded,
+                "sha256": sha256,
+                "added": written.added,
+                "replaced": written.replaced,
+                "removed": written.removed,
+                "total": written.total,
+            }),
+        )
+        .await?;
+    Ok(UploadReport {
+        metric: metric.key.to_string(),
+        mode,
+        rows: uploaded,
+        added: written.added,
+        replaced: written.replaced,
+        removed: written.removed,
+        total: written.total,
+        sha256: sha256.to_string(),
+        event_seq,
+    })
+}
+
 /// Under the write lock: checks the uploader again, swaps the new history in and records the
 /// event. `None` when a merge's base is no longer live; otherwise the report and the history
 /// that was retired.
@@ -229,38 +304,8 @@ async fn put_live(
         },
     };
     rows::put_live(&mut w, metric.id, u.history, written.total).await?;
-    let actor = match by {
-        Uploader::User(u) => Actor::User(u.username.clone()),
-        Uploader::Cli => Actor::Cli,
-    };
-    let event_seq = w
-        .record(
-            &actor,
-            "observations.uploaded",
-            &metric.subject(),
-            serde_json::json!({
-                "mode": u.mode.as_str(),
-                "rows": u.uploaded,
-                "sha256": u.sha256,
-                "added": written.added,
-                "replaced": written.replaced,
-                "removed": written.removed,
-                "total": written.total,
-            }),
-        )
-        .await?;
+    let report = record_upload(&mut w, by, &metric, u.mode, u.uploaded, u.sha256, written).await?;
     w.commit().await?;
-    let report = UploadReport {
-        metric: metric.key.to_string(),
-        mode: u.mode,
-        rows: u.uploaded,
-        added: written.added,
-        replaced: written.replaced,
-        removed: written.removed,
-        total: written.total,
-        sha256: u.sha256.to_string(),
-        event_seq,
-    };
     Ok(Some((report, before.map(|l| l.id))))
 }
 

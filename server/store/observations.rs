@@ -1,9 +1,11 @@
 //! Each metric's history: one value per period start, kept in histories of which one per
 //! metric is live (migrations/*/0006_histories.sql).
 //!
-//! An upload never writes into the live history. It builds a new one in short transactions
-//! ([`add`], [`copy_missing`]), then [`put_live`] swaps it in with one small update inside the
-//! upload's write transaction, beside its event. Retired histories and histories whose upload
+//! A large upload never writes into the live history. It builds a new one in short
+//! transactions ([`add`], [`copy_missing`]), then [`put_live`] swaps it in with one small
+//! update inside the upload's write transaction, beside its event. A small merge (at most
+//! [`ROWS_PER_TRANSACTION`] rows) goes straight into the live history in that transaction
+//! ([`merge_into_live`]), so it costs what it writes, not what the history holds. Retired histories and histories whose upload
 //! died are deleted by [`sweep`], also a short transaction at a time. So other writers never
 //! wait for more than one short transaction of an upload, whatever its size, and rows of a
 //! failed upload neither linger nor slow later uploads (each history is its own key range).
@@ -111,6 +113,87 @@ async fn touch(tx: &mut Db, history: i64) -> StoreResult<()> {
     Ok(())
 }
 
+/// The INSERT of one statement's worth of rows into `history`, bound and ready, ending with
+/// `on_conflict`.
+fn insert_rows<'q>(
+    history: i64,
+    chunk: &'q [Observation],
+    on_conflict: &str,
+) -> sqlx::query::Query<'q, sqlx::Any, sqlx::any::AnyArguments> {
+    let mut sql =
+        String::from("INSERT INTO observations (history_id, period_start, value) VALUES ");
+    for i in 0..chunk.len() {
+        if i > 0 {
+            sql.push(',');
+        }
+        let p = 2 * i + 1;
+        sql.push_str(&format!("($1, ${}, ${})", p + 1, p + 2));
+    }
+    sql.push(' ');
+    sql.push_str(on_conflict);
+    // Built from placeholders only; every value is bound.
+    let mut q = sqlx::query(sqlx::AssertSqlSafe(sql)).bind(history);
+    for o in chunk {
+        q = q.bind(o.period_start).bind(o.value);
+    }
+    q
+}
+
+/// Inside the upload's write transaction: merges `rows` (distinct periods, a few thousand at
+/// most, so the lock is held briefly) straight into the metric's live history, which it
+/// starts if the metric has none. A small merge thus costs what it writes, whatever the size
+/// of the history.
+pub async fn merge_into_live(
+    w: &mut WriteTx,
+    metric_id: i64,
+    rows: &[Observation],
+) -> StoreResult<Written> {
+    let (history, before) = match live(w.conn(), metric_id).await? {
+        Some(l) => (l.id, l.rows),
+        None => {
+            let id: i64 = sqlx::query_scalar(
+                "INSERT INTO histories (metric_id, state, rows, touched_at) \
+                 VALUES ($1, 'live', 0, $2) RETURNING id",
+            )
+            .bind(metric_id)
+            .bind(w.now())
+            .fetch_one(w.conn())
+            .await?;
+            (id, 0)
+        }
+    };
+    let mut added = 0;
+    for chunk in rows.chunks(ROWS_PER_STATEMENT) {
+        added += insert_rows(
+            history,
+            chunk,
+            "ON CONFLICT (history_id, period_start) DO NOTHING",
+        )
+        .execute(w.conn())
+        .await?
+        .rows_affected();
+        insert_rows(
+            history,
+            chunk,
+            "ON CONFLICT (history_id, period_start) DO UPDATE SET value = excluded.value",
+        )
+        .execute(w.conn())
+        .await?;
+    }
+    let total = before + added;
+    sqlx::query("UPDATE histories SET rows = $1 WHERE id = $2")
+        .bind(total as i64)
+        .bind(history)
+        .execute(w.conn())
+        .await?;
+    Ok(Written {
+        added,
+        replaced: rows.len() as u64 - added,
+        removed: 0,
+        total,
+    })
+}
+
 /// Adds `rows` (distinct periods, none in the history yet) to a history being built, a short
 /// transaction at a time, telling `progress` how many are written.
 pub async fn add(
@@ -124,21 +207,7 @@ pub async fn add(
         let mut tx = store.begin_unrecorded().await?;
         touch(&mut tx, history).await?;
         for chunk in group.chunks(ROWS_PER_STATEMENT) {
-            let mut sql =
-                String::from("INSERT INTO observations (history_id, period_start, value) VALUES ");
-            for i in 0..chunk.len() {
-                if i > 0 {
-                    sql.push(',');
-                }
-                let p = 2 * i + 1;
-                sql.push_str(&format!("($1, ${}, ${})", p + 1, p + 2));
-            }
-            // Built from placeholders only; every value is bound.
-            let mut q = sqlx::query(sqlx::AssertSqlSafe(sql)).bind(history);
-            for o in chunk {
-                q = q.bind(o.period_start).bind(o.value);
-            }
-            q.execute(&mut tx).await?;
+            insert_rows(history, chunk, "").execute(&mut tx).await?;
         }
         tx.commit().await?;
         done += group.len() as u64;

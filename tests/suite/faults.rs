@@ -329,26 +329,34 @@ crate::on_both_backends! { with TestApp::spawn_impatient;
 
     async fn concurrent_merges_into_one_history_keep_every_period(app) {
         let team = Team::new(app).await;
-        let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 1000, 1.0)).await;
-        assert_eq!(status, 200, "{body}");
-        // Two merges at once, overlapping in periods 2,000 to 2,999.
-        let a = hourly_csv(1000, 2000, 2.0);
-        let b = hourly_csv(2000, 2000, 3.0);
-        let (ra, rb) = tokio::join!(upload_csv(&team, "merge", a), upload_csv(&team, "merge", b));
-        assert_eq!(ra.0, 200, "{}", ra.1);
-        assert_eq!(rb.0, 200, "{}", rb.1);
-        let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
-        let values: Vec<f64> = listed["observations"].as_array().unwrap().iter().map(|o| o["value"].as_f64().unwrap()).collect();
-        assert_eq!(values.len(), 4000, "no period is lost");
-        assert!(values[..1000].iter().all(|v| *v == 1.0));
-        assert!(values[1000..2000].iter().all(|v| *v == 2.0));
-        assert!(values[3000..].iter().all(|v| *v == 3.0));
-        // The overlap holds the values of whichever upload was recorded last.
-        let last = if ra.1["event_seq"].as_i64() > rb.1["event_seq"].as_i64() { 2.0 } else { 3.0 };
-        assert!(values[2000..3000].iter().all(|v| *v == last));
-        let totals = [ra.1["total"].as_u64().unwrap(), rb.1["total"].as_u64().unwrap()];
-        assert!(totals.contains(&4000), "{totals:?}");
-        assert_eq!(leftovers(&team.app).await, 0);
+        // Merges larger than one short transaction are built beside the live history (a
+        // small one goes straight into it); one of two at once must build again on the
+        // other's history. Then the same with small merges.
+        for (size, overlap) in [(6000, 3000), (200, 100)] {
+            let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 1000, 1.0)).await;
+            assert_eq!(status, 200, "{body}");
+            let a = hourly_csv(1000, size, 2.0);
+            let b = hourly_csv(1000 + size - overlap, size, 3.0);
+            let (ra, rb) = tokio::join!(upload_csv(&team, "merge", a), upload_csv(&team, "merge", b));
+            assert_eq!(ra.0, 200, "{}", ra.1);
+            assert_eq!(rb.0, 200, "{}", rb.1);
+            let (_, listed) = team.call("wren", "GET", &format!("/api/v1/metrics/{METRIC}/observations"), None).await;
+            let values: Vec<f64> = listed["observations"].as_array().unwrap().iter().map(|o| o["value"].as_f64().unwrap()).collect();
+            let total = 1000 + 2 * size as usize - overlap as usize;
+            assert_eq!(values.len(), total, "no period is lost");
+            let (first_b, last_a) = (1000 + (size - overlap) as usize, 1000 + size as usize);
+            assert!(values[..1000].iter().all(|v| *v == 1.0));
+            assert!(values[1000..first_b].iter().all(|v| *v == 2.0));
+            assert!(values[last_a..].iter().all(|v| *v == 3.0));
+            // The overlap holds the values of whichever upload was recorded last.
+            let last = if ra.1["event_seq"].as_i64() > rb.1["event_seq"].as_i64() { 2.0 } else { 3.0 };
+            assert!(values[first_b..last_a].iter().all(|v| *v == last));
+            let totals = [ra.1["total"].as_u64().unwrap(), rb.1["total"].as_u64().unwrap()];
+            assert!(totals.contains(&(total as u64)), "{totals:?}");
+            assert_eq!(leftovers(&team.app).await, 0);
+        }
+        let out = crate::cli::cutpoints(&["audit", "verify", "--database-url", &team.app.store_url]);
+        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     }
 }
 
