@@ -462,12 +462,12 @@ async fn upload_histories(
     for m in METRICS {
         let owner = person(people, split_list(m.owners)[0].as_str());
         let csv = history_csv(m.key, end);
-        crate::ops::evidence::upload(
+        crate::ops::uploads::upload(
             store,
-            crate::ops::evidence::Uploader::User(owner),
+            crate::ops::uploads::Uploader::User(owner),
             m.key,
             crate::store::observations::Mode::Replace,
-            crate::ops::evidence::Format::Csv,
+            crate::ops::uploads::Format::Csv,
             csv.into_bytes().into(),
         )
         .await?;

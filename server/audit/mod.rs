@@ -3,6 +3,7 @@
 //! the construction so anyone can re-verify an export with their own tools.
 
 pub mod chain;
+pub mod register;
 pub mod replay;
 
 pub use chain::{

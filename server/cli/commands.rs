@@ -363,7 +363,7 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
 }
 
 async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
-    use crate::ops::evidence::{self, Format, Uploader};
+    use crate::ops::uploads::{self, Format, Uploader};
     use crate::store::observations::Mode;
     use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
     use sha2::{Digest, Sha256};
@@ -399,7 +399,7 @@ async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
     let parsed = {
         let bar = bar.clone();
         tokio::task::spawn_blocking(move || {
-            evidence::parse(Format::Csv, &bytes, |read| bar.set_position(read))
+            uploads::parse(Format::Csv, &bytes, |read| bar.set_position(read))
         })
         .await?
     };
@@ -421,7 +421,7 @@ async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
     bar.set_message("writing");
     bar.set_length(rows.len() as u64);
     bar.set_position(0);
-    let report = evidence::store_rows(&store, Uploader::Cli, &metric, mode, &rows, &sha256, |n| {
+    let report = uploads::store_rows(&store, Uploader::Cli, &metric, mode, &rows, &sha256, |n| {
         bar.set_position(n)
     })
     .await

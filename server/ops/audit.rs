@@ -6,7 +6,7 @@ use serde::Serialize;
 use serde_json::Value;
 
 use super::{OpError, OpResult};
-use crate::audit::replay::Difference;
+use crate::audit::register::Difference;
 use crate::domain::Role;
 use crate::domain::Timestamp;
 use crate::engine::changes::compare;

@@ -7,6 +7,7 @@ pub mod metrics;
 pub mod proposals;
 pub mod publication;
 pub mod upkeep;
+pub mod uploads;
 pub mod users;
 pub mod versions;
 

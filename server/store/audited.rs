@@ -9,10 +9,10 @@ use sqlx::any::AnyRow;
 
 use super::events::Stop;
 use super::{Db, Store, StoreResult};
-use crate::audit::replay::{
-    Difference, Fields, Register, Replayer, RowKey, Unreadable, float, int, list, opt_int,
-    opt_text, shapes_rows, stored_roles, text,
+use crate::audit::register::{
+    Difference, Fields, Register, RowKey, float, int, list, opt_int, opt_text, roles_value, text,
 };
+use crate::audit::replay::{Replayer, Unreadable, shapes_rows};
 use crate::audit::{Break, Entry};
 
 /// What the full check found.
@@ -51,7 +51,7 @@ pub async fn check(store: &Store, known_head: Option<(i64, String)>) -> StoreRes
         Err(Stop::Visitor(u)) => return Ok(Finding::Unreadable(u)),
     };
     let stored = read(&mut db).await?;
-    let differences = crate::audit::replay::compare(&stored, &replayer.finish());
+    let differences = crate::audit::register::compare(&stored, &replayer.finish());
     Ok(if differences.is_empty() {
         Finding::Ok { events, head }
     } else {
@@ -83,7 +83,7 @@ pub async fn read(db: &mut Db) -> StoreResult<Register> {
                     ("active", Kind::Int),
                     ("created_at", Kind::Text),
                 ],
-                [("roles", stored_roles(&roles))],
+                [("roles", roles_value(&roles))],
             )?,
         );
     }

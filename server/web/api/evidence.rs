@@ -13,9 +13,8 @@ use super::openapi::ErrorBody;
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
 use crate::domain::observations::Observation;
-use crate::ops::evidence::{
-    self, Evidence, Format, ProposalBacktest, UploadReport, Uploader, VersionBacktest, Window,
-};
+use crate::ops::evidence::{self, Evidence, ProposalBacktest, VersionBacktest, Window};
+use crate::ops::uploads::{self, Format, UploadReport, Uploader};
 use crate::store::observations::Mode;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
@@ -97,7 +96,7 @@ pub async fn upload(
     request: Request,
 ) -> Result<Json<UploadReport>, ApiError> {
     // Who may comes before what they sent, and before reading it.
-    evidence::may_upload_to(&state.store, &Uploader::User(caller.user()), key.as_str()).await?;
+    uploads::may_upload_to(&state.store, &Uploader::User(caller.user()), key.as_str()).await?;
     let mode = mode(query.mode.as_deref())?;
     let content_type = request
         .headers()
@@ -118,7 +117,7 @@ pub async fn upload(
         }
     };
     let bytes = read_body(request.into_body(), state.config.upload_limit).await?;
-    let report = evidence::upload(
+    let report = uploads::upload(
         &state.store,
         Uploader::User(caller.user()),
         key.as_str(),

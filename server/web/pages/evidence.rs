@@ -10,7 +10,8 @@ use serde_json::{Value, json};
 use crate::domain::thresholds::{CutSet, Shades};
 use crate::domain::{MetricKey, number};
 use crate::engine::warnings::{DEFAULT_CRITICAL_SHARE, percent, round_for_text};
-use crate::ops::evidence::{self, Format, History, Uploader};
+use crate::ops::evidence::{self, History};
+use crate::ops::uploads::{self, Format, Uploader};
 use crate::store::observations::Mode;
 use crate::store::versions::VersionRecord;
 use crate::web::AppState;
@@ -288,7 +289,7 @@ pub async fn upload(
     let Some(file) = file.filter(|f| !f.is_empty()) else {
         return Err(bad("choose a CSV file to upload".into()));
     };
-    match evidence::upload(
+    match uploads::upload(
         &state.store,
         Uploader::User(&session.user),
         key.as_str(),
