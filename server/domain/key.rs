@@ -1,4 +1,4 @@
-//! Metric keys: `[a-z0-9][a-z0-9_.-]{0,63}` (DESIGN.md).
+//! Metric keys: `[a-z0-9][a-z0-9_.-]{0,63}` (docs/design.md).
 
 use std::fmt;
 

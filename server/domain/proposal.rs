@@ -114,7 +114,7 @@ pub fn cuts_object(cuts: &CutSet) -> BTreeMap<&'static str, f64> {
     cuts.named().into_iter().collect()
 }
 
-/// A proposal's state (DESIGN.md).
+/// A proposal's state (docs/design.md).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum ProposalState {

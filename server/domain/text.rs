@@ -1,4 +1,4 @@
-//! Length limits on free text (DESIGN.md), counted in characters, and the one rule on control
+//! Length limits on free text (docs/design.md), counted in characters, and the one rule on control
 //! characters for every text field: a control character (Unicode general category Cc: the C0
 //! controls, DEL and the C1 controls) is refused wherever it stands; only multi-line fields
 //! take line breaks and tabs. Trimming removes spaces, never a control character, so one at

@@ -1,7 +1,7 @@
 //! Direction types, cut sets and shades: the validated inputs of the engine.
 //!
 //! A `CutSet` can only be built through [`CutSet::new`], which enforces the strict ordering of
-//! DESIGN.md, so every other layer may rely on it.
+//! docs/design.md, so every other layer may rely on it.
 
 use std::fmt;
 use std::str::FromStr;
@@ -126,8 +126,8 @@ pub struct CutSet {
 }
 
 impl CutSet {
-    /// Checks the ordering rule of DESIGN.md and returns the set, or the first pair that breaks
-    /// it, named with both values and the direction.
+    /// Checks the ordering rule of docs/design.md and returns the set, or the first pair that
+    /// breaks it, named with both values and the direction.
     pub fn new(direction: Direction, cuts: [f64; 4]) -> Result<CutSet, ThresholdError> {
         let names = direction.cut_names();
         for (name, value) in names.iter().zip(cuts) {
@@ -221,7 +221,7 @@ impl CutSet {
     }
 }
 
-/// How many shades each graded zone is split into (DESIGN.md: 2 to 5, default 3).
+/// How many shades each graded zone is split into (docs/design.md: 2 to 5, default 3).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
 #[serde(transparent)]
 pub struct Shades(u8);

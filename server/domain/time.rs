@@ -1,4 +1,4 @@
-//! UTC timestamps in the one format DESIGN.md fixes: `YYYY-MM-DDTHH:MM:SS.ffffffZ`.
+//! UTC timestamps in the one format docs/design.md fixes: `YYYY-MM-DDTHH:MM:SS.ffffffZ`.
 //!
 //! Stored as that fixed-width text on both databases, so that string order is time order and
 //! comparisons in SQL work the same on SQLite and PostgreSQL.

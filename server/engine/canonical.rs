@@ -1,4 +1,4 @@
-//! The canonical text of a threshold version and its content hash (DESIGN.md): LF-terminated
+//! The canonical text of a threshold version and its content hash (docs/design.md): LF-terminated
 //! `name: value` lines in a fixed order, the rationale last and indented, so that a diff
 //! between two revisions reads naturally and the hash covers everything, rationale included.
 

@@ -1,4 +1,4 @@
-//! Classifying a value against a cut set, exactly as DESIGN.md states the rules.
+//! Classifying a value against a cut set, exactly as docs/design.md states the rules.
 //!
 //! Reaching a line counts as crossing it: the line itself belongs to the zone beyond it.
 
@@ -127,7 +127,7 @@ pub fn classify(cuts: &CutSet, shades: Shades, value: Option<f64>) -> Classifica
     let shade = match zone {
         Zone::Steady => 0,
         Zone::Critical | Zone::Stretch => s + 1,
-        // Computed in f64 exactly as DESIGN.md writes it: severity first, then times S.
+        // Computed in f64 exactly as docs/design.md writes it: severity first, then times S.
         _ => {
             let graded = (severity * f64::from(s)).floor() + 1.0;
             (graded.min(f64::from(s))) as u8
@@ -395,7 +395,7 @@ fn grade_block(
     }
     for ((raw, &place), severity) in values.iter().zip(&*place).zip(severity.iter_mut()) {
         let v = raw * sign;
-        // Exactly as DESIGN.md writes them: the difference divided by the span, the low side's
+        // Exactly as docs/design.md writes them: the difference divided by the span, the low side's
         // below steady and the high side's above; the outer zones are 1, steady 0.
         let upper = place >= 3;
         let numerator = if upper { v - c2 } else { c1 - v };

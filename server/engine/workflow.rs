@@ -234,7 +234,7 @@ pub fn signoff_reasons(previous: Option<&CutSet>, changes: &FieldChanges) -> Vec
         .collect()
 }
 
-/// What approval still needs (DESIGN.md's `still_needed`).
+/// What approval still needs (`still_needed` in docs/design.md).
 #[derive(Clone, Debug, PartialEq, Eq, Serialize)]
 pub struct StillNeeded {
     /// More reviewer approvals needed.

@@ -1,4 +1,4 @@
-//! The published set as a document: `{"meta":{...},"set":{KEY:{...}}}` (DESIGN.md), its
+//! The published set as a document: `{"meta":{...},"set":{KEY:{...}}}` (docs/design.md), its
 //! digest, its signature, and its bytes. The body is the RFC 8785 form of the signed document,
 //! so the same request always gives the same bytes.
 

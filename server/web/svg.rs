@@ -66,9 +66,9 @@ pub(crate) fn zones_left_to_right(direction: Direction) -> [Zone; 5] {
 
 /// The cut points as `(name, value)` in ascending value order, as the axis shows them.
 ///
-/// In every direction the line belongs to the zone farther from `steady` (DESIGN.md: reaching a
-/// line counts as crossing it), so the two lowest lines belong to the zone on their left and the
-/// two highest to the zone on their right.
+/// In every direction the line belongs to the zone farther from `steady` (docs/design.md:
+/// reaching a line counts as crossing it), so the two lowest lines belong to the zone on their
+/// left and the two highest to the zone on their right.
 pub(crate) fn ascending_cuts(cuts: &CutSet) -> [(&'static str, f64); 4] {
     let mut named = cuts.named();
     if cuts.direction() == Direction::LowerIsBetter {

@@ -51,7 +51,7 @@ fn classify_prints_one_json_object_per_value() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    // The first line is DESIGN.md's own example.
+    // The first line is the example docs/design.md gives.
     assert_eq!(
         String::from_utf8_lossy(&out.stdout).lines().next().unwrap(),
         r#"{"value":65.0,"zone":"intervene","severity":0.25,"shade":1,"signal":-1}"#

@@ -1,4 +1,4 @@
-//! The engine's rules from DESIGN.md, case by case: a value exactly on every line and between
+//! The engine's rules from docs/design.md, case by case: a value exactly on every line and between
 //! lines, for every direction. Cut points and values are exact in binary, so each expected
 //! severity is exact too.
 

@@ -168,7 +168,7 @@ fn hib_cuts(a: f64, b: f64, c: f64, d: f64) -> CutSet {
 fn a_backtest_counts_zones_shades_and_status_changes() {
     let cuts = hib_cuts(50.0, 70.0, 80.0, 90.0);
     let shades = Shades::new(3).unwrap();
-    // Lines belong to the zone beyond them (DESIGN.md): 50 is critical, 70 intervene, 80
+    // Lines belong to the zone beyond them (docs/design.md): 50 is critical, 70 intervene, 80
     // outperform, 90 stretch.
     let values = [45.0, 50.0, 60.0, 70.0, 75.0, 80.0, 85.0, 90.0, 95.0, 65.0];
     let bt = backtest(&cuts, shades, &values);
