@@ -31,7 +31,13 @@ pub async fn content(
     // Byte order of keys, whatever the database's collation.
     in_force.sort_by(|a, b| a.0.cmp(&b.0));
     let withheld = withhold_unapproved(&mut conn, &mut in_force).await?;
-    let keys: std::collections::HashSet<&str> = in_force.iter().map(|(k, _)| k.as_str()).collect();
+    // A withheld metric has a version in force (one that does not match its record): it is
+    // named in meta.withheld, not among the metrics without a version.
+    let keys: std::collections::HashSet<&str> = in_force
+        .iter()
+        .map(|(k, _)| k.as_str())
+        .chain(withheld.iter().map(|w| w.metric.as_str()))
+        .collect();
     // The set is a function of its revision: metrics without a version are those that
     // existed when the revision took effect.
     let mut without = match in_force_since {

@@ -176,6 +176,7 @@ crate::on_both_backends! {
         let withheld = &doc["meta"]["withheld"][0];
         assert_eq!((withheld["metric"].as_str(), withheld["version"].as_i64()), (Some(METRIC), Some(2)));
         assert!(withheld["reason"].as_str().unwrap().contains("do not hash to the revision hash"), "{withheld}");
+        assert_eq!(doc["meta"]["metrics_without_version"], json!([]), "withheld is not the same as without a version");
         // One metric of a past set is checked the same way.
         let one = publisher.at(&team.app.store, None, None, Some(METRIC)).await.unwrap();
         let one: Value = serde_json::from_slice(&one.json).unwrap();
