@@ -193,6 +193,10 @@ async fn sign_in_add_a_metric_and_see_it_listed(base: &str, client: &Client) {
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+#[cfg_attr(
+    chromium_missing,
+    ignore = "needs Debian's chromium and chromium-driver"
+)]
 async fn in_chromium_an_admin_signs_in_adds_a_metric_and_sees_it_listed() {
     let Some((driver, chromium)) = start_driver().await else {
         return;
@@ -382,6 +386,10 @@ async fn the_whole_agreement(base: &str, client: &Client) {
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+#[cfg_attr(
+    chromium_missing,
+    ignore = "needs Debian's chromium and chromium-driver"
+)]
 async fn in_chromium_a_proposal_is_sent_back_revised_approved_and_signed() {
     let Some((driver, chromium)) = start_driver().await else {
         return;
@@ -443,6 +451,10 @@ async fn upload_history_through_the_form(base: &str, client: &Client, file: &std
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+#[cfg_attr(
+    chromium_missing,
+    ignore = "needs Debian's chromium and chromium-driver"
+)]
 async fn in_chromium_an_owner_uploads_history_and_sees_it_drawn() {
     let Some((driver, chromium)) = start_driver().await else {
         return;

@@ -21,6 +21,20 @@ static PASSWORD_HASH: LazyLock<String> =
 
 pub const POSTGRES_ENV: &str = "CUTPOINTS_TEST_POSTGRES_URL";
 
+/// The PostgreSQL server the suite makes its databases on: the one `CUTPOINTS_TEST_POSTGRES_URL`
+/// names, or else a throwaway cluster of this run's own, started on first use from the
+/// installed server binaries and removed when the run ends, however it ends.
+pub fn postgres_server() -> Option<String> {
+    if let Ok(url) = std::env::var(POSTGRES_ENV) {
+        return Some(url);
+    }
+    static CLUSTER: std::sync::OnceLock<Option<crate::pg_cluster::Cluster>> =
+        std::sync::OnceLock::new();
+    let cluster =
+        tokio::task::block_in_place(|| CLUSTER.get_or_init(crate::pg_cluster::Cluster::start));
+    cluster.as_ref().map(|c| c.url())
+}
+
 /// A database timeout short enough for tests that wait past it.
 pub const IMPATIENT: StoreSettings = StoreSettings {
     timeout: std::time::Duration::from_secs(1),
@@ -117,8 +131,10 @@ impl TestApp {
                 (url, Some(folder), None)
             }
             Backend::Postgres => {
-                let Ok(admin_url) = std::env::var(POSTGRES_ENV) else {
-                    missing_prerequisite(&format!("PostgreSQL ({POSTGRES_ENV} is not set)"));
+                let Some(admin_url) = postgres_server() else {
+                    missing_prerequisite(&format!(
+                        "PostgreSQL (neither {POSTGRES_ENV} nor Debian's postgresql package, whose server binaries the suite starts a cluster with)"
+                    ));
                     return None;
                 };
                 let name = format!("cutpoints_test_{}", random_suffix());
@@ -430,6 +446,7 @@ macro_rules! on_both_backends {
             }
 
             #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            #[cfg_attr(postgres_missing, ignore = "needs PostgreSQL: install Debian's postgresql package or set CUTPOINTS_TEST_POSTGRES_URL")]
             async fn postgres() {
                 if let Some(app) = $spawn($crate::helpers::Backend::Postgres).await {
                     run(app).await

@@ -1,5 +1,6 @@
 //! The whole test suite, in one binary to keep build times down. Tests that need a database
-//! run on SQLite always and on PostgreSQL when `CUTPOINTS_TEST_POSTGRES_URL` is set.
+//! run on SQLite and on PostgreSQL: the server `CUTPOINTS_TEST_POSTGRES_URL` names, or a
+//! throwaway cluster the run starts itself (DEVELOPERS.md, "Testing").
 
 mod helpers;
 

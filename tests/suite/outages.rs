@@ -191,6 +191,10 @@ async fn healthz(team: &Team) -> reqwest::Response {
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+#[cfg_attr(
+    postgres_binaries_missing,
+    ignore = "needs Debian's postgresql package (its server binaries)"
+)]
 async fn postgres_stopped_and_started_again_under_load_answers_503_and_recovers() {
     let Some(cluster) = Cluster::start() else {
         return;
@@ -221,6 +225,10 @@ async fn postgres_stopped_and_started_again_under_load_answers_503_and_recovers(
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+#[cfg_attr(
+    postgres_binaries_missing,
+    ignore = "needs Debian's postgresql package (its server binaries)"
+)]
 async fn a_stalled_postgres_is_answered_with_503_while_it_stalls_and_recovers() {
     let Some(cluster) = Cluster::start() else {
         return;

@@ -1,7 +1,9 @@
-//! A throwaway PostgreSQL cluster of a test's own, made with the installed server binaries
-//! (`initdb`, `pg_ctl`; Debian keeps them in /usr/lib/postgresql/NN/bin), for faults that would
-//! disturb the server other tests share: stopping, starting and stalling it. `initdb` refuses
-//! to run as root, so as root the cluster runs as the `postgres` system user.
+//! Throwaway PostgreSQL clusters, made with the installed server binaries (`initdb`, `pg_ctl`;
+//! Debian keeps them in /usr/lib/postgresql/NN/bin): the one the whole run makes its databases
+//! on when no server is named (`helpers::postgres_server`), and a test's own for faults that
+//! would disturb the others (stopping, starting and stalling it). `initdb` refuses to run as
+//! root, so as root a cluster runs as the `postgres` system user. A cluster is removed when it
+//! is dropped and, in any case, when the test process ends.
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
@@ -147,7 +149,37 @@ impl Cluster {
             String::from_utf8_lossy(&out.stderr)
         );
         cluster.start_again();
+        cluster.watch_over();
         Some(cluster)
+    }
+
+    /// Starts a process of its own (its own session, so that stopping the test run does not
+    /// stop it) that stops and removes the cluster once this test process has ended, however
+    /// it ended: a cluster shared by the whole run is never dropped, and a killed run drops
+    /// nothing.
+    fn watch_over(&self) {
+        let pg_ctl = self.bin.join("pg_ctl");
+        let as_postgres = if self.as_postgres {
+            "runuser -u postgres -- "
+        } else {
+            ""
+        };
+        let script = format!(
+            "while kill -0 {pid} 2>/dev/null; do sleep 1; done; \
+             {as_postgres}'{pg_ctl}' -D '{data}' -m immediate -w stop >/dev/null 2>&1; \
+             rm -rf '{dir}'",
+            pid = std::process::id(),
+            pg_ctl = pg_ctl.display(),
+            data = self.data(),
+            dir = self.dir.display(),
+        );
+        Command::new("setsid")
+            .args(["sh", "-c", &script])
+            .stdin(std::process::Stdio::null())
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null())
+            .spawn()
+            .expect("setsid and sh (util-linux and dash on Debian)");
     }
 
     fn data(&self) -> String {
@@ -166,7 +198,7 @@ impl Cluster {
     /// Starts the server (again), waiting until it accepts connections.
     pub fn start_again(&self) {
         let options = format!(
-            "-p {} -k {} -c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=60",
+            "-p {} -k {} -c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=300",
             self.port,
             self.dir.display()
         );
