@@ -173,13 +173,15 @@ impl Cluster {
             data = self.data(),
             dir = self.dir.display(),
         );
-        Command::new("setsid")
-            .args(["sh", "-c", &script])
+        // `--fork`: setsid returns at once, leaving the watchdog running on its own.
+        let started = Command::new("setsid")
+            .args(["--fork", "sh", "-c", &script])
             .stdin(std::process::Stdio::null())
             .stdout(std::process::Stdio::null())
             .stderr(std::process::Stdio::null())
-            .spawn()
+            .status()
             .expect("setsid and sh (util-linux and dash on Debian)");
+        assert!(started.success(), "the cluster's watchdog did not start");
     }
 
     fn data(&self) -> String {
