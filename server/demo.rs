@@ -5,6 +5,7 @@ use std::collections::BTreeMap;
 
 use chrono::{Datelike, Months};
 
+use crate::domain::User;
 use crate::domain::metric::split_list;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::domain::{Direction, Roles, Timestamp, Username};
@@ -13,7 +14,6 @@ use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::ops::users::{By, add_with_hash, hash_password};
 use crate::ops::{OpError, OpResult};
 use crate::store::Store;
-use crate::store::users::User;
 
 /// A demo login: username, display name, roles, password.
 pub struct DemoPerson {

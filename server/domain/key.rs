@@ -32,7 +32,30 @@ impl MetricKey {
         }
     }
 
+    /// A key read back from the database, which held only parsed keys.
+    pub fn from_stored(text: String) -> MetricKey {
+        MetricKey(text)
+    }
+
     pub fn as_str(&self) -> &str {
+        &self.0
+    }
+}
+
+impl PartialEq<str> for MetricKey {
+    fn eq(&self, other: &str) -> bool {
+        self.0 == other
+    }
+}
+
+impl PartialEq<&str> for MetricKey {
+    fn eq(&self, other: &&str) -> bool {
+        self.0 == *other
+    }
+}
+
+impl AsRef<str> for MetricKey {
+    fn as_ref(&self) -> &str {
         &self.0
     }
 }

@@ -1,69 +1,78 @@
-//! A metric's descriptive fields and their validation.
+//! A metric of the register: the entity, its descriptive fields and their validation.
 
 use serde::Serialize;
+use serde_json::{Map, Value, json};
 
 use super::people::Username;
 use super::text::{self, TextError};
+use super::{MetricKey, Timestamp};
 
-/// One field that failed validation, with a message fit to show beside it.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
-pub struct FieldProblem {
-    pub field: String,
-    pub message: String,
+/// A person named as an owner of a metric.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
+pub struct Owner {
+    #[schema(value_type = String)]
+    pub username: Username,
+    pub display_name: String,
 }
 
-/// Every problem found in one submission, so a form can show them all at once.
-#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
-#[serde(transparent)]
-pub struct Problems(pub Vec<FieldProblem>);
+/// A metric of the register, as stored.
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
+pub struct Metric {
+    #[serde(skip)]
+    pub id: i64,
+    #[schema(value_type = String)]
+    pub key: MetricKey,
+    pub name: String,
+    pub description: String,
+    pub unit: String,
+    pub owners: Vec<Owner>,
+    pub data_source: String,
+    pub review_cadence_months: Option<i64>,
+    pub tags: Vec<String>,
+    #[schema(value_type = String)]
+    pub created_at: Timestamp,
+    #[schema(value_type = String)]
+    pub updated_at: Timestamp,
+}
 
-impl Problems {
-    /// One problem with one field.
-    pub fn single(field: impl Into<String>, message: impl Into<String>) -> Problems {
-        let mut p = Problems::default();
-        p.add(field, message);
-        p
+impl Metric {
+    /// The subject of the metric's events: `metric:KEY`.
+    pub fn subject(&self) -> String {
+        subject(self.key.as_str())
     }
 
-    pub fn add(&mut self, field: impl Into<String>, message: impl Into<String>) {
-        self.0.push(FieldProblem {
-            field: field.into(),
-            message: message.into(),
-        });
+    pub fn is_owner(&self, username: &Username) -> bool {
+        self.owners.iter().any(|o| &o.username == username)
     }
 
-    /// Records the error of `result` (if any) against `field` and returns the value.
-    pub fn check<T, E: std::fmt::Display>(
-        &mut self,
-        field: &str,
-        result: Result<T, E>,
-    ) -> Option<T> {
-        match result {
-            Ok(v) => Some(v),
-            Err(e) => {
-                self.add(field, e.to_string());
-                None
-            }
-        }
+    /// The descriptive fields as they appear in an event's before/after.
+    pub fn fields_json(&self) -> Map<String, Value> {
+        let mut map = Map::new();
+        map.insert("name".into(), json!(self.name));
+        map.insert("description".into(), json!(self.description));
+        map.insert("unit".into(), json!(self.unit));
+        map.insert(
+            "owners".into(),
+            json!(
+                self.owners
+                    .iter()
+                    .map(|o| o.username.as_str())
+                    .collect::<Vec<_>>()
+            ),
+        );
+        map.insert("data_source".into(), json!(self.data_source));
+        map.insert(
+            "review_cadence_months".into(),
+            json!(self.review_cadence_months),
+        );
+        map.insert("tags".into(), json!(self.tags));
+        map
     }
+}
 
-    pub fn is_empty(&self) -> bool {
-        self.0.is_empty()
-    }
-
-    pub fn first_message(&self) -> String {
-        self.0
-            .first()
-            .map(|p| p.message.clone())
-            .unwrap_or_default()
-    }
-
-    pub fn for_field(&self, field: &str) -> Option<&str> {
-        self.0
-            .iter()
-            .find(|p| p.field == field)
-            .map(|p| p.message.as_str())
-    }
+/// The subject of a metric's events.
+pub fn subject(key: &str) -> String {
+    format!("metric:{key}")
 }
 
 pub const CADENCE_MAX_MONTHS: i64 = 120;

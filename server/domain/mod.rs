@@ -8,12 +8,15 @@ pub mod metric;
 pub mod number;
 pub mod observations;
 pub mod people;
+pub mod problems;
 pub mod proposal;
 pub mod text;
 pub mod thresholds;
 pub mod time;
 
 pub use key::MetricKey;
-pub use people::{Role, Roles, Username};
+pub use metric::{Metric, Owner};
+pub use people::{Person, Role, Roles, User, Username};
+pub use problems::{FieldProblem, Problems};
 pub use thresholds::{CutSet, Direction, Shades};
 pub use time::Timestamp;

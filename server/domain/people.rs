@@ -1,4 +1,5 @@
-//! Usernames, display names, roles and password rules.
+//! People: accounts and how a person is shown, usernames, display names, roles and password
+//! rules.
 
 use std::collections::BTreeSet;
 use std::fmt;
@@ -6,7 +7,33 @@ use std::str::FromStr;
 
 use serde::{Deserialize, Deserializer, Serialize};
 
+use super::Timestamp;
 use super::text::{self, TextError};
+
+/// A person with an account.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct User {
+    #[serde(skip)]
+    pub id: i64,
+    pub username: Username,
+    pub display_name: String,
+    pub roles: Roles,
+    pub active: bool,
+    pub created_at: Timestamp,
+}
+
+/// A person as shown beside what they did, with what the rules need to know now.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Person {
+    #[serde(skip)]
+    pub id: i64,
+    pub username: Username,
+    pub display_name: String,
+    #[serde(skip)]
+    pub active: bool,
+    #[serde(skip)]
+    pub roles: Roles,
+}
 
 #[derive(Clone, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
 #[serde(transparent)]
@@ -26,7 +53,30 @@ impl Username {
             .map_err(|_| UsernameError(text.to_string()))
     }
 
+    /// A username read back from the database, which held only parsed usernames.
+    pub fn from_stored(text: String) -> Username {
+        Username(text)
+    }
+
     pub fn as_str(&self) -> &str {
+        &self.0
+    }
+}
+
+impl PartialEq<str> for Username {
+    fn eq(&self, other: &str) -> bool {
+        self.0 == other
+    }
+}
+
+impl PartialEq<&str> for Username {
+    fn eq(&self, other: &&str) -> bool {
+        self.0 == *other
+    }
+}
+
+impl AsRef<str> for Username {
+    fn as_ref(&self) -> &str {
         &self.0
     }
 }

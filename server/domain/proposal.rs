@@ -5,7 +5,7 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use super::metric::Problems;
+use super::problems::Problems;
 use super::text::{self, TextError};
 use super::thresholds::{CutSet, Direction, Shades};
 use super::time::Timestamp;

@@ -7,15 +7,16 @@ use serde_json::Value;
 
 use super::{OpError, OpResult};
 use crate::audit::register::Difference;
+use crate::domain::Metric;
 use crate::domain::Role;
 use crate::domain::Timestamp;
+use crate::domain::User;
 use crate::engine::changes::compare;
 use crate::engine::workflow::signoff_reasons;
 use crate::store::Store;
 use crate::store::audited::{self, Finding};
 use crate::store::events::{self, EventFilter};
-use crate::store::metrics::{self, Metric, MetricFilter};
-use crate::store::users::User;
+use crate::store::metrics::{self, MetricFilter};
 use crate::store::versions::{self, VersionRecord};
 
 /// Auditors read everything; admins too.
@@ -85,7 +86,7 @@ pub async fn timeline(store: &Store, by: &User, key: &str) -> OpResult<Timeline>
         });
     }
     Ok(Timeline {
-        metric: metric.key.clone(),
+        metric: metric.key.to_string(),
         name: metric.name.clone(),
         versions,
     })
@@ -175,7 +176,7 @@ pub async fn as_of(
             (None, _) => "no version was in force".to_string(),
         };
         out.push(AsOfEntry {
-            metric: m.key.clone(),
+            metric: m.key.to_string(),
             name: m.name.clone(),
             in_force: then.as_ref().map(brief),
             known_later: if differs {
@@ -310,7 +311,7 @@ pub async fn exceptions(store: &Store, by: &User) -> OpResult<Exceptions> {
             let previous = i.checked_sub(1).map(|p| &all[p].content.cuts);
             let reasons = signoff_reasons(previous, &compare(previous, &v.content.cuts));
             unsigned.push(UnsignedVersion {
-                metric: m.key.clone(),
+                metric: m.key.to_string(),
                 version: v.number,
                 approved_at: v.approved_at,
                 signoff_required: !reasons.is_empty(),
@@ -326,7 +327,7 @@ pub async fn exceptions(store: &Store, by: &User) -> OpResult<Exceptions> {
                 .unwrap_or(last);
             if due < now {
                 lapsed.push(LapsedReview {
-                    metric: m.key.clone(),
+                    metric: m.key.to_string(),
                     review_cadence_months: months,
                     last_reviewed: last,
                     due,

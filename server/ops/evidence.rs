@@ -4,6 +4,7 @@
 use serde::Serialize;
 
 use super::{OpError, OpResult};
+use crate::domain::Metric;
 use crate::domain::Timestamp;
 use crate::domain::observations::Observation;
 use crate::domain::thresholds::{CutSet, Shades};
@@ -11,7 +12,6 @@ use crate::engine::backtest::{self, Backtest, Difference};
 use crate::engine::stats::{self, LIMITS_MIN_POINTS, ProcessLimits, Summary};
 use crate::engine::warnings::{self, Warning};
 use crate::engine::{Side, Zone};
-use crate::store::metrics::Metric;
 use crate::store::versions::VersionRecord;
 use crate::store::{Store, StoreError, metrics, observations as rows, proposals, versions};
 
@@ -116,7 +116,7 @@ pub async fn history(store: &Store, metric: Metric, window: Window) -> OpResult<
     if let (Some(f), Some(t)) = (window.from, window.to)
         && f >= t
     {
-        return Err(OpError::Invalid(crate::domain::metric::Problems::single(
+        return Err(OpError::Invalid(crate::domain::Problems::single(
             "from",
             "from must be before to",
         )));
@@ -213,7 +213,7 @@ pub fn critical_share(requested: Option<f64>) -> OpResult<f64> {
     match requested {
         None => Ok(warnings::DEFAULT_CRITICAL_SHARE),
         Some(s) if (0.0..=1.0).contains(&s) => Ok(s),
-        Some(_) => Err(OpError::Invalid(crate::domain::metric::Problems::single(
+        Some(_) => Err(OpError::Invalid(crate::domain::Problems::single(
             "critical_share",
             "critical_share must be a number from 0 to 1",
         ))),

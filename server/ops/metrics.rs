@@ -3,10 +3,12 @@
 use serde::Deserialize;
 
 use super::{OpError, OpResult};
-use crate::domain::metric::{self, MetricFields, Problems};
+use crate::domain::Metric;
+use crate::domain::Problems;
+use crate::domain::User;
+use crate::domain::metric::{self, MetricFields};
 use crate::domain::{MetricKey, Role};
-use crate::store::metrics::{Metric, MetricPatch};
-use crate::store::users::User;
+use crate::store::metrics::MetricPatch;
 use crate::store::{Actor, Store};
 
 /// A new metric as submitted, before validation. The API deserialises into it; the form
@@ -148,7 +150,7 @@ pub async fn create(store: &Store, by: &User, input: &NewMetric) -> OpResult<Met
     let (key, fields) = validate_new(input)?;
     let mut w = store.begin_write().await?;
     let metric =
-        crate::store::metrics::create(&mut w, &Actor::User(by.username.clone()), &key, &fields)
+        crate::store::metrics::create(&mut w, &Actor::User(by.username.to_string()), &key, &fields)
             .await?;
     w.commit().await?;
     Ok(metric)
@@ -181,7 +183,7 @@ pub async fn edit(store: &Store, by: &User, key: &str, input: &MetricEdit) -> Op
     edit_permission(by, &current, input)?;
     let patch = validate_edit(input)?;
     let metric =
-        crate::store::metrics::update(&mut w, &Actor::User(by.username.clone()), key, &patch)
+        crate::store::metrics::update(&mut w, &Actor::User(by.username.to_string()), key, &patch)
             .await?;
     w.commit().await?;
     Ok(metric)

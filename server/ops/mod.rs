@@ -11,7 +11,7 @@ pub mod uploads;
 pub mod users;
 pub mod versions;
 
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::store::StoreError;
 
 /// The one error type of this layer.

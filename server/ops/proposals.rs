@@ -8,7 +8,10 @@ use serde::{Deserialize, Serialize};
 use serde_json::json;
 
 use super::{OpError, OpResult};
-use crate::domain::metric::Problems;
+use crate::domain::Metric;
+use crate::domain::Person;
+use crate::domain::Problems;
+use crate::domain::User;
 use crate::domain::proposal::{
     ContentInput, ProposalState, ThresholdContent, Verdict, cuts_object, validate_content,
 };
@@ -17,9 +20,8 @@ use crate::domain::{Role, Timestamp};
 use crate::engine::canonical::{canonical_text, content_hash, unified_diff};
 use crate::engine::changes::{FieldChanges, compare};
 use crate::engine::workflow::{self, Decision, Refusal, StillNeeded};
-use crate::store::metrics::{self, Metric};
-use crate::store::proposals::{self as records, NewRevision, Person, ProposalBundle};
-use crate::store::users::User;
+use crate::store::metrics;
+use crate::store::proposals::{self as records, NewRevision, ProposalBundle};
 use crate::store::versions::{self, NewVersion, VersionRecord};
 use crate::store::{Actor, Store, StoreError, WriteTx, policy, throttle};
 
@@ -80,12 +82,12 @@ fn person_json(p: &Person) -> serde_json::Value {
 }
 
 fn actor_of(user: &User) -> Actor {
-    Actor::User(user.username.clone())
+    Actor::User(user.username.to_string())
 }
 
 fn rules_actor<'a>(user: &'a User, metric: &Metric) -> workflow::Actor<'a> {
     workflow::Actor {
-        username: &user.username,
+        username: user.username.as_str(),
         roles: &user.roles,
         owns_metric: metric.is_owner(&user.username),
     }

@@ -5,11 +5,11 @@ use serde::Serialize;
 use sha2::{Digest, Sha256};
 
 use super::{OpError, OpResult};
+use crate::domain::Metric;
 use crate::domain::Role;
+use crate::domain::User;
 use crate::domain::observations::{self, Observation, RowProblem};
-use crate::store::metrics::Metric;
 use crate::store::observations::{Mode, Written};
-use crate::store::users::User;
 use crate::store::{Actor, Store, StoreError, metrics, observations as rows};
 
 /// How an upload is written.
@@ -233,7 +233,7 @@ async fn record_upload(
     written: Written,
 ) -> OpResult<UploadReport> {
     let actor = match by {
-        Uploader::User(u) => Actor::User(u.username.clone()),
+        Uploader::User(u) => Actor::User(u.username.to_string()),
         Uploader::Cli => Actor::Cli,
     };
     let event_seq = w

@@ -3,12 +3,12 @@
 
 use super::{OpError, OpResult};
 use crate::auth::password;
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
+use crate::domain::User;
 use crate::domain::people::{self, check_password};
 use crate::domain::text;
 use crate::domain::{Role, Roles, Timestamp, Username};
 use crate::store::tokens::{Scope, TokenInfo};
-use crate::store::users::User;
 use crate::store::{Actor, Store, tokens, users};
 
 /// Who is acting: a signed-in person, or the operator at the command line (who holds the
@@ -23,7 +23,7 @@ impl By<'_> {
     pub fn actor(&self) -> Actor {
         match self {
             By::Operator => Actor::Cli,
-            By::Person(u) => Actor::User(u.username.clone()),
+            By::Person(u) => Actor::User(u.username.to_string()),
         }
     }
 

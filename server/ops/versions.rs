@@ -6,12 +6,12 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use super::OpResult;
+use crate::domain::Metric;
 use crate::domain::Timestamp;
 use crate::domain::proposal::cuts_object;
 use crate::engine::canonical::unified_diff;
 use crate::engine::changes::{FieldChanges, compare};
 use crate::store::Store;
-use crate::store::metrics::Metric;
 use crate::store::versions::{self, VersionRecord, VersionStatus};
 
 /// A version as the API and pages show it.

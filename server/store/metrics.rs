@@ -1,75 +1,13 @@
 //! The metric register: descriptive fields, owners and tags.
 
 use serde::Serialize;
-use serde_json::{Map, Value, json};
+use serde_json::{Map, json};
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
 use super::{Actor, Store, StoreError, StoreResult, WriteTx};
-use crate::domain::metric::{MetricFields, Problems};
-use crate::domain::{MetricKey, Role, Timestamp, Username};
-
-#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
-pub struct Owner {
-    pub username: String,
-    pub display_name: String,
-}
-
-#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
-pub struct Metric {
-    #[serde(skip)]
-    pub id: i64,
-    pub key: String,
-    pub name: String,
-    pub description: String,
-    pub unit: String,
-    pub owners: Vec<Owner>,
-    pub data_source: String,
-    pub review_cadence_months: Option<i64>,
-    pub tags: Vec<String>,
-    #[schema(value_type = String)]
-    pub created_at: Timestamp,
-    #[schema(value_type = String)]
-    pub updated_at: Timestamp,
-}
-
-impl Metric {
-    pub fn subject(&self) -> String {
-        subject(&self.key)
-    }
-
-    pub fn is_owner(&self, username: &str) -> bool {
-        self.owners.iter().any(|o| o.username == username)
-    }
-
-    /// The descriptive fields as they appear in an event's before/after.
-    fn fields_json(&self) -> Map<String, Value> {
-        let mut map = Map::new();
-        map.insert("name".into(), json!(self.name));
-        map.insert("description".into(), json!(self.description));
-        map.insert("unit".into(), json!(self.unit));
-        map.insert(
-            "owners".into(),
-            json!(
-                self.owners
-                    .iter()
-                    .map(|o| o.username.as_str())
-                    .collect::<Vec<_>>()
-            ),
-        );
-        map.insert("data_source".into(), json!(self.data_source));
-        map.insert(
-            "review_cadence_months".into(),
-            json!(self.review_cadence_months),
-        );
-        map.insert("tags".into(), json!(self.tags));
-        map
-    }
-}
-
-pub fn subject(key: &str) -> String {
-    format!("metric:{key}")
-}
+use crate::domain::metric::MetricFields;
+use crate::domain::{Metric, MetricKey, Owner, Problems, Role, Username};
 
 /// A change to some descriptive fields; `None` leaves a field as it is.
 #[derive(Clone, Debug, Default)]
@@ -395,7 +333,7 @@ pub async fn create(
     write_tags(w, id, &fields.tags).await?;
     let metric = Metric {
         id,
-        key: key.as_str().to_string(),
+        key: key.clone(),
         name: fields.name.clone(),
         description: fields.description.clone(),
         unit: fields.unit.clone(),

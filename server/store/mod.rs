@@ -6,6 +6,7 @@
 //! event to the event record inside the same transaction.
 
 pub mod audited;
+mod codecs;
 mod db;
 pub mod events;
 pub mod metrics;
@@ -14,7 +15,6 @@ pub mod policy;
 pub mod proposals;
 pub mod sessions;
 pub mod throttle;
-mod timestamp;
 pub mod tokens;
 pub mod usage;
 pub mod users;
@@ -27,8 +27,8 @@ use sqlx::any::{AnyConnectOptions, AnyPoolOptions};
 use sqlx::pool::PoolConnection;
 use sqlx::{Any, AnyPool};
 
+use crate::domain::Problems;
 use crate::domain::Timestamp;
-use crate::domain::metric::Problems;
 
 pub use db::Db;
 use db::Health;

@@ -21,7 +21,7 @@ pub async fn reviewers_required(conn: &mut Db) -> StoreResult<u32> {
 /// Changes `reviewers_required`, recording the change with its before and after.
 pub async fn set_reviewers_required(w: &mut WriteTx, actor: &Actor, n: i64) -> StoreResult<i64> {
     if !(REVIEWERS_MIN..=REVIEWERS_MAX).contains(&n) {
-        let mut p = crate::domain::metric::Problems::default();
+        let mut p = crate::domain::Problems::default();
         p.add(
             "reviewers_required",
             format!("reviewers_required must be from {REVIEWERS_MIN} to {REVIEWERS_MAX}, got {n}"),

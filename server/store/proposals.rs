@@ -2,7 +2,6 @@
 //! Revisions, reviews, sign-offs and comments are only ever inserted; whether a review or
 //! sign-off is stale is derived (it names a revision that is no longer the latest).
 
-use serde::Serialize;
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
@@ -11,20 +10,7 @@ use super::Db;
 use super::versions::cuts_from_row;
 use super::{StoreError, StoreResult, WriteTx};
 use crate::domain::proposal::{ProposalState, ThresholdContent, Verdict};
-use crate::domain::{Roles, Timestamp};
-
-/// A person as shown beside what they did, with what the rules need to know now.
-#[derive(Clone, Debug, PartialEq, Serialize)]
-pub struct Person {
-    #[serde(skip)]
-    pub id: i64,
-    pub username: String,
-    pub display_name: String,
-    #[serde(skip)]
-    pub active: bool,
-    #[serde(skip)]
-    pub roles: Roles,
-}
+use crate::domain::{Person, Roles, Timestamp, Username};
 
 fn person(row: &AnyRow, prefix: &str) -> StoreResult<Person> {
     let col = |name: &str| format!("{prefix}_{name}");
@@ -147,8 +133,10 @@ impl ProposalBundle {
     }
 
     /// Wrote at least one revision.
-    pub fn is_author(&self, username: &str) -> bool {
-        self.revisions.iter().any(|r| r.author.username == username)
+    pub fn is_author(&self, username: &Username) -> bool {
+        self.revisions
+            .iter()
+            .any(|r| &r.author.username == username)
     }
 }
 

@@ -3,9 +3,9 @@
 
 use sqlx::Row;
 
-use super::users::User;
 use super::{Store, StoreResult, WriteTx};
 use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::User;
 use crate::domain::{Roles, Timestamp};
 
 /// A session ends after this long without a request (OWASP ASVS 4.0.3 §3.3.2 allows 12 hours

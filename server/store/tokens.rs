@@ -6,9 +6,9 @@ use serde_json::json;
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
-use super::users::User;
 use super::{Actor, Store, StoreError, StoreResult, WriteTx};
 use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::User;
 use crate::domain::{Roles, Timestamp};
 
 /// What a token may do.
@@ -111,7 +111,7 @@ pub async fn issue(
         secret,
         TokenInfo {
             id,
-            username: user.username.clone(),
+            username: user.username.to_string(),
             prefix,
             scope,
             label: label.to_string(),

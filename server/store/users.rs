@@ -1,23 +1,11 @@
 //! People: accounts, roles, activation and passwords.
 
-use serde::Serialize;
 use serde_json::json;
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
 use super::{Actor, Store, StoreError, StoreResult, WriteTx};
-use crate::domain::{Roles, Timestamp, Username};
-
-#[derive(Clone, Debug, PartialEq, Serialize)]
-pub struct User {
-    #[serde(skip)]
-    pub id: i64,
-    pub username: String,
-    pub display_name: String,
-    pub roles: Roles,
-    pub active: bool,
-    pub created_at: Timestamp,
-}
+use crate::domain::{Roles, User, Username};
 
 fn user_from_row(row: &AnyRow) -> StoreResult<User> {
     let roles: String = row.try_get("roles")?;
@@ -86,7 +74,7 @@ pub async fn create(
     .await?;
     Ok(User {
         id,
-        username: username.as_str().to_string(),
+        username: username.clone(),
         display_name: display_name.to_string(),
         roles: roles.clone(),
         active: true,

@@ -22,9 +22,9 @@ use cookie::{Cookie, SameSite};
 use super::AppState;
 use super::error::{ApiError, PageError};
 use crate::auth::secret::{constant_time_eq, random_token};
+use crate::domain::User;
 use crate::store::sessions::{self, Session};
 use crate::store::tokens::Scope;
-use crate::store::users::User;
 
 pub const SESSION_COOKIE: &str = "cutpoints_session";
 pub const SIGNIN_COOKIE: &str = "cutpoints_signin";

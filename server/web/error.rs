@@ -6,7 +6,7 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde_json::json;
 
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::ops::OpError;
 use crate::store::StoreError;
 

@@ -12,7 +12,7 @@ use serde::de::DeserializeOwned;
 
 use super::AppState;
 use super::error::ApiError;
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::domain::text;
 
 /// A JSON body: `application/json` (415 otherwise), within the body limit (413), and a

@@ -8,8 +8,8 @@ use std::time::{Duration, Instant};
 
 use std::sync::Arc;
 
+use crate::domain::User;
 use crate::store::tokens::{self, Scope};
-use crate::store::users::User;
 use crate::store::{Store, StoreResult};
 
 pub const TTL: Duration = Duration::from_secs(1);

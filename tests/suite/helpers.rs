@@ -3,10 +3,10 @@
 
 use std::sync::LazyLock;
 
+use cutpoints::domain::User;
 use cutpoints::domain::{Roles, Username};
 use cutpoints::ops::users::{By, add_with_hash};
 use cutpoints::store::tokens::Scope;
-use cutpoints::store::users::User;
 use cutpoints::store::{Store, StoreSettings, events};
 use cutpoints::{AppState, WebConfig};
 use serde_json::Value;

@@ -45,7 +45,7 @@ impl ExtractQuery {
         } else {
             let key = MetricKey::parse(self.metric.trim())
                 .map_err(|e| ApiError::bad_request(format!("metric: {e}")))?;
-            crate::store::metrics::subject(key.as_str())
+            crate::domain::metric::subject(key.as_str())
         };
         let limit = self.limit.unwrap_or(default_limit);
         if !(1..=audit::EXTRACT_LIMIT_MAX).contains(&limit) {

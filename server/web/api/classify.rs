@@ -7,7 +7,7 @@ use axum::Json;
 use serde::{Deserialize, Serialize};
 
 use super::openapi::{ClassifyResults, ErrorBody};
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::domain::thresholds::{CutSet, Direction, Shades};
 use crate::engine::{Classification, classify_all};
 use crate::web::auth::ApiCaller;

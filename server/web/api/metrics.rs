@@ -39,7 +39,7 @@ impl FromRequestParts<AppState> for KeyPath {
 #[utoipa::path(post, path = "/v1/metrics", operation_id = "createMetric", tag = "register",
     request_body = NewMetric,
     responses(
-        (status = 201, description = "Created; Location names it", body = metrics::Metric),
+        (status = 201, description = "Created; Location names it", body = crate::domain::Metric),
         (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody),
         (status = 409, description = "A metric with this key exists", body = ErrorBody),
 
@@ -132,13 +132,13 @@ pub async fn show(
 #[utoipa::path(patch, path = "/v1/metrics/{key}", operation_id = "editMetric", tag = "register",
     params(("key" = String, Path, description = "Metric key")),
     request_body = MetricEdit,
-    responses((status = 200, description = "The metric as changed", body = metrics::Metric), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The metric as changed", body = crate::domain::Metric), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn edit(
     State(state): State<AppState>,
     caller: ApiCaller,
     KeyPath(key): KeyPath,
     ApiJson(input): ApiJson<MetricEdit>,
-) -> Result<Json<metrics::Metric>, ApiError> {
+) -> Result<Json<crate::domain::Metric>, ApiError> {
     Ok(Json(
         ops::metrics::edit(&state.store, caller.user(), key.as_str(), &input).await?,
     ))

@@ -10,7 +10,7 @@ use serde::de::DeserializeOwned;
 
 use super::metrics::KeyPath;
 use super::openapi::{AuditView, ErrorBody, History, ProposalInput, ProposalView};
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::store::metrics;

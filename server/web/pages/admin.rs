@@ -8,7 +8,7 @@ use axum::response::{IntoResponse, Redirect, Response};
 use serde_json::json;
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
-use crate::domain::metric::Problems;
+use crate::domain::Problems;
 use crate::domain::{Role, Timestamp, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
@@ -134,7 +134,7 @@ pub async fn user_create(
 
 fn user_page(
     session: &Session,
-    person: &users::User,
+    person: &crate::domain::User,
     person_tokens: &[tokens::TokenInfo],
     notice: Option<&str>,
     problems: &Problems,
@@ -281,7 +281,7 @@ pub async fn user_password(
 fn tokens_page(
     session: &Session,
     all: &[tokens::TokenInfo],
-    people: &[users::User],
+    people: &[crate::domain::User],
     issued: Option<(&str, &tokens::TokenInfo)>,
     form: Option<&FormFields>,
     problems: &Problems,

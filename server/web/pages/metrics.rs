@@ -7,12 +7,14 @@ use serde::Deserialize;
 use serde_json::json;
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
-use crate::domain::metric::{Problems, split_list};
+use crate::domain::Metric;
+use crate::domain::Problems;
+use crate::domain::metric::split_list;
 use crate::domain::{MetricKey, Role};
 use crate::ops::metrics::{MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
 use crate::store::StoreError;
-use crate::store::metrics::{self, Metric, MetricFilter};
+use crate::store::metrics::{self, MetricFilter};
 use crate::store::sessions::Session;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
@@ -154,7 +156,7 @@ pub async fn detail(
     };
     let can_propose = open.is_none()
         && crate::engine::workflow::may_propose(crate::engine::workflow::Actor {
-            username: &session.user.username,
+            username: session.user.username.as_str(),
             roles: &session.user.roles,
             owns_metric: metric.is_owner(&session.user.username),
         })
@@ -230,7 +232,7 @@ fn form_values(metric: Option<&Metric>, form: Option<&FormFields>) -> serde_json
     };
     let m = metric;
     json!({
-        "key": field("key", m.map(|m| m.key.clone()).unwrap_or_default()),
+        "key": field("key", m.map(|m| m.key.to_string()).unwrap_or_default()),
         "name": field("name", m.map(|m| m.name.clone()).unwrap_or_default()),
         "description": field("description", m.map(|m| m.description.clone()).unwrap_or_default()),
         "unit": field("unit", m.map(|m| m.unit.clone()).unwrap_or_default()),

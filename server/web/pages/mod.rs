@@ -21,8 +21,8 @@ use tera::Context;
 use super::AppState;
 use super::error::{ApiError, PageError};
 use super::templates;
+use crate::domain::Problems;
 use crate::domain::Role;
-use crate::domain::metric::Problems;
 use crate::store::sessions::Session;
 
 /// The context every page starts from: who is signed in, their CSRF token, the page title

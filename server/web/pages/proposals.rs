@@ -10,7 +10,8 @@ use serde::Deserialize;
 use serde_json::{Value, json};
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
-use crate::domain::metric::Problems;
+use crate::domain::Metric;
+use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::domain::thresholds::{CutSet, Direction};
 use crate::domain::{MetricKey, Role};
@@ -18,7 +19,7 @@ use crate::engine::workflow::{self, Decision};
 use crate::ops::OpError;
 use crate::ops::proposals::{self as flow, ProposalView, RevisionInput};
 use crate::store::StoreError;
-use crate::store::metrics::{self, Metric};
+use crate::store::metrics;
 use crate::store::sessions::Session;
 use crate::store::versions::VersionRecord;
 use crate::web::AppState;
@@ -290,7 +291,7 @@ pub async fn new_form(
 
 fn rules_actor<'a>(session: &'a Session, metric: &Metric) -> workflow::Actor<'a> {
     workflow::Actor {
-        username: &session.user.username,
+        username: session.user.username.as_str(),
         roles: &session.user.roles,
         owns_metric: metric.is_owner(&session.user.username),
     }
