@@ -3,7 +3,7 @@
 
 use axum::Json;
 use axum::http::{HeaderValue, StatusCode, header};
-use axum::response::{IntoResponse, Response};
+use axum::response::{Html, IntoResponse, Response};
 use serde_json::json;
 
 use crate::domain::Problems;
@@ -189,7 +189,7 @@ impl IntoResponse for ApiError {
 }
 
 /// An error shown to a browser as a page. Built from the same variants; rendered by
-/// `pages::error_page` so it carries the site's layout.
+/// [`error_page`] so it carries the site's layout.
 #[derive(Debug)]
 pub struct PageError(pub ApiError);
 
@@ -213,6 +213,37 @@ impl From<OpError> for PageError {
 
 impl IntoResponse for PageError {
     fn into_response(self) -> Response {
-        super::pages::error_page(&self.0)
+        error_page(&self.0)
     }
+}
+
+/// The page for an error, with the same status and message the API would give.
+pub fn error_page(err: &ApiError) -> Response {
+    let heading = match err.status {
+        StatusCode::BAD_REQUEST => "That request could not be used",
+        StatusCode::UNAUTHORIZED => "Please sign in",
+        StatusCode::FORBIDDEN => "Not allowed",
+        StatusCode::NOT_FOUND => "Not found",
+        StatusCode::CONFLICT => "That clashes with what is recorded",
+        StatusCode::PAYLOAD_TOO_LARGE => "Too large",
+        StatusCode::UNSUPPORTED_MEDIA_TYPE => "Unsupported form encoding",
+        StatusCode::TOO_MANY_REQUESTS => "Too many attempts",
+        StatusCode::SERVICE_UNAVAILABLE if err.code == "busy" => "Busy with other changes",
+        StatusCode::SERVICE_UNAVAILABLE => "The database is not answering",
+        _ => "Something went wrong",
+    };
+    let mut ctx = super::layout::base_context(None, heading, "");
+    ctx.insert("heading", heading);
+    ctx.insert("message", &err.message);
+    let mut response = match super::templates::render("error.html", &ctx) {
+        Ok(body) => (err.status, Html(body)).into_response(),
+        // The error page itself failed: fall back to plain words rather than loop.
+        Err(_) => (err.status, Html(format!("<h1>{heading}</h1>"))).into_response(),
+    };
+    if let Some(seconds) = err.retry_after {
+        response
+            .headers_mut()
+            .insert(header::RETRY_AFTER, HeaderValue::from(seconds));
+    }
+    response
 }

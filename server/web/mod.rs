@@ -6,6 +6,7 @@ pub mod auth;
 pub mod error;
 pub mod extract;
 pub mod history_chart;
+pub mod layout;
 pub mod pages;
 pub mod redirect;
 pub mod svg;

@@ -13,45 +13,15 @@ use std::collections::BTreeMap;
 
 use axum::body::Bytes;
 use axum::extract::{FromRequest, Request};
-use axum::http::{HeaderValue, StatusCode, header};
+use axum::http::StatusCode;
 use axum::response::{Html, IntoResponse, Response};
-use serde_json::json;
 use tera::Context;
 
 use super::AppState;
-use super::error::{ApiError, PageError};
+use super::error::{ApiError, PageError, error_page};
+pub use super::layout::base_context;
 use super::templates;
 use crate::domain::Problems;
-use crate::domain::Role;
-use crate::store::sessions::Session;
-
-/// The context every page starts from: who is signed in, their CSRF token, the page title
-/// and which part of the navigation is current.
-pub fn base_context(session: Option<&Session>, title: &str, section: &str) -> Context {
-    let mut ctx = Context::new();
-    ctx.insert("title", title);
-    ctx.insert("section", section);
-    match session {
-        Some(s) => {
-            ctx.insert(
-                "me",
-                &json!({
-                    "username": s.user.username,
-                    "display_name": s.user.display_name,
-                    "roles": s.user.roles.iter().map(Role::as_str).collect::<Vec<_>>(),
-                    "is_admin": s.user.roles.has(Role::Admin),
-                    "is_auditor": s.user.roles.has(Role::Auditor) || s.user.roles.has(Role::Admin),
-                }),
-            );
-            ctx.insert("csrf", &s.csrf_token);
-        }
-        None => {
-            ctx.insert("me", &serde_json::Value::Null);
-            ctx.insert("csrf", "");
-        }
-    }
-    ctx
-}
 
 /// Renders a page with a status.
 pub fn render(status: StatusCode, name: &str, ctx: &Context) -> Response {
@@ -63,37 +33,6 @@ pub fn render(status: StatusCode, name: &str, ctx: &Context) -> Response {
 
 pub fn page(name: &str, ctx: &Context) -> Response {
     render(StatusCode::OK, name, ctx)
-}
-
-/// The page for an error, with the same status and message the API would give.
-pub fn error_page(err: &ApiError) -> Response {
-    let heading = match err.status {
-        StatusCode::BAD_REQUEST => "That request could not be used",
-        StatusCode::UNAUTHORIZED => "Please sign in",
-        StatusCode::FORBIDDEN => "Not allowed",
-        StatusCode::NOT_FOUND => "Not found",
-        StatusCode::CONFLICT => "That clashes with what is recorded",
-        StatusCode::PAYLOAD_TOO_LARGE => "Too large",
-        StatusCode::UNSUPPORTED_MEDIA_TYPE => "Unsupported form encoding",
-        StatusCode::TOO_MANY_REQUESTS => "Too many attempts",
-        StatusCode::SERVICE_UNAVAILABLE if err.code == "busy" => "Busy with other changes",
-        StatusCode::SERVICE_UNAVAILABLE => "The database is not answering",
-        _ => "Something went wrong",
-    };
-    let mut ctx = base_context(None, heading, "");
-    ctx.insert("heading", heading);
-    ctx.insert("message", &err.message);
-    let mut response = match templates::render("error.html", &ctx) {
-        Ok(body) => (err.status, Html(body)).into_response(),
-        // The error page itself failed: fall back to plain words rather than loop.
-        Err(_) => (err.status, Html(format!("<h1>{heading}</h1>"))).into_response(),
-    };
-    if let Some(seconds) = err.retry_after {
-        response
-            .headers_mut()
-            .insert(header::RETRY_AFTER, HeaderValue::from(seconds));
-    }
-    response
 }
 
 /// A posted form as its fields in order (repeated names, like checkboxes, are kept).
