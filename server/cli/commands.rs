@@ -13,9 +13,9 @@ use super::{
     ServeArgs, TokenCommand, UserCommand,
 };
 use crate::domain::Timestamp;
+use crate::domain::access::Scope;
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
-use crate::store::tokens::Scope;
 use crate::store::{Store, users};
 use crate::web::{AppState, WebConfig};
 

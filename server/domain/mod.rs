@@ -1,6 +1,7 @@
 //! Validated domain types. Each is built by a parsing constructor that refuses bad input, so
 //! the layers above never check the same thing twice.
 
+pub mod access;
 pub mod csv_out;
 pub mod json_errors;
 pub mod key;

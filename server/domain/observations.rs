@@ -496,3 +496,22 @@ pub fn to_csv(rows: &[Observation]) -> Vec<u8> {
     }
     out.finish()
 }
+
+/// How an upload meets the history already stored.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Mode {
+    /// Add new periods; give periods already stored their uploaded value.
+    Merge,
+    /// The upload becomes the whole history.
+    Replace,
+}
+
+impl Mode {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Mode::Merge => "merge",
+            Mode::Replace => "replace",
+        }
+    }
+}

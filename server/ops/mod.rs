@@ -1,6 +1,7 @@
 //! What people do, checked and carried out: the permission rule, the validation and the store
 //! call of each action, shared by the HTTP API, the pages and the command line. Knows no HTTP.
 
+pub mod access;
 pub mod audit;
 pub mod evidence;
 pub mod metrics;

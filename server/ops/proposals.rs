@@ -23,7 +23,7 @@ use crate::engine::workflow::{self, Decision, Refusal, StillNeeded};
 use crate::store::metrics;
 use crate::store::proposals::{self as records, NewRevision, ProposalBundle};
 use crate::store::versions::{self, NewVersion, VersionRecord};
-use crate::store::{Actor, Store, StoreError, WriteTx, policy, throttle};
+use crate::store::{Actor, Store, StoreError, WriteTx, policy};
 
 /// What a sign-off means, recorded with it.
 pub const SIGNOFF_MEANING: &str = "approved as signatory";
@@ -627,43 +627,6 @@ async fn signoff_allowed(
     Ok((w, bundle, metric, reasons))
 }
 
-/// A fresh authentication for a sign-off, throttled like sign-in and checked outside the
-/// write lock (hashing takes tens of milliseconds). A wrong password is recorded and counted.
-async fn reauthenticate(store: &Store, by: &User, id: i64, password: &str) -> OpResult<()> {
-    let account = by.username.as_str();
-    if let Some(until) = throttle::locked_until(store, throttle::Scope::Account, account).await? {
-        throttle::count_refused(store, throttle::Scope::Account, account).await?;
-        let secs = (until.as_datetime() - Timestamp::now().as_datetime())
-            .num_seconds()
-            .max(1);
-        return Err(OpError::Throttled(secs as u64));
-    }
-    let Some((_, hash)) = crate::store::users::credentials(store, account).await? else {
-        return Err(OpError::BadCredentials("the password is not right".into()));
-    };
-    let plain = password.to_string();
-    let verified =
-        tokio::task::spawn_blocking(move || crate::auth::password::verify(&plain, &hash))
-            .await
-            .unwrap_or(false);
-    if verified {
-        return Ok(());
-    }
-    let mut w = store.begin_write().await?;
-    throttle::count_failure(&mut w, throttle::Scope::Account, account).await?;
-    w.record(
-        &actor_of(by),
-        "signoff.password_failed",
-        &crate::store::users::subject(account),
-        json!({"proposal": id}),
-    )
-    .await?;
-    w.commit().await?;
-    Err(OpError::BadCredentials(
-        "the password is not right; a sign-off needs your own password".into(),
-    ))
-}
-
 /// `POST .../signoff`: a signatory signs the latest revision off, re-entering their password.
 pub async fn sign_off(
     store: &Store,
@@ -679,7 +642,15 @@ pub async fn sign_off(
     // not sign. This check writes nothing; committing only ends its transaction and lock.
     let (checked, ..) = signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;
     checked.commit().await?;
-    reauthenticate(store, by, id, password).await?;
+    // A fresh authentication, throttled like sign-in, outside the write lock (hashing
+    // takes tens of milliseconds).
+    super::access::check_password(
+        store,
+        by.username.as_str(),
+        password,
+        super::access::Purpose::SignOff { proposal: id },
+    )
+    .await?;
     // Decided again in the transaction that writes: another step may have come in between.
     let (mut w, bundle, metric, reasons) =
         signoff_allowed(store.begin_write().await?, by, id, revision_hash).await?;

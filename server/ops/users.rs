@@ -5,10 +5,10 @@ use super::{OpError, OpResult};
 use crate::auth::password;
 use crate::domain::Problems;
 use crate::domain::User;
+use crate::domain::access::{Scope, TokenInfo};
 use crate::domain::people::{self, check_password};
 use crate::domain::text;
 use crate::domain::{Role, Roles, Timestamp, Username};
-use crate::store::tokens::{Scope, TokenInfo};
 use crate::store::{Actor, Store, tokens, users};
 
 /// Who is acting: a signed-in person, or the operator at the command line (who holds the

@@ -14,6 +14,7 @@ use sqlx::Row;
 
 use super::{Db, Store, StoreError, StoreResult, WriteTx};
 use crate::domain::Timestamp;
+pub use crate::domain::observations::Mode;
 use crate::domain::observations::Observation;
 
 /// Rows per INSERT statement: 3 parameters each, well under both databases' limits.
@@ -21,25 +22,6 @@ const ROWS_PER_STATEMENT: usize = 1000;
 /// Rows per short transaction while building or deleting a history: small enough that a
 /// transaction holds the write lock for a few tens of milliseconds (docs/benchmarks.md).
 pub const ROWS_PER_TRANSACTION: usize = 5000;
-
-/// How an upload meets the history already stored.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Mode {
-    /// Add new periods; give periods already stored their uploaded value.
-    Merge,
-    /// The upload becomes the whole history.
-    Replace,
-}
-
-impl Mode {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Mode::Merge => "merge",
-            Mode::Replace => "replace",
-        }
-    }
-}
 
 /// What an upload changed.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]

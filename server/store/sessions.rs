@@ -6,6 +6,7 @@ use sqlx::Row;
 use super::{Store, StoreResult, WriteTx};
 use crate::auth::secret::{random_token, stored_hash};
 use crate::domain::User;
+use crate::domain::access::Session;
 use crate::domain::{Roles, Timestamp};
 
 /// A session ends after this long without a request (OWASP ASVS 4.0.3 §3.3.2 allows 12 hours
@@ -16,14 +17,6 @@ pub const ABSOLUTE_SECONDS: i64 = 12 * 60 * 60;
 /// `last_seen_at` is refreshed at most this often; the refresh is written in a later batch
 /// (`usage::flush`), never by the request that reads the session.
 const TOUCH_EVERY_SECONDS: i64 = 60;
-
-/// A signed-in browser session.
-#[derive(Clone, Debug)]
-pub struct Session {
-    pub id_hash: String,
-    pub csrf_token: String,
-    pub user: User,
-}
 
 /// Creates a session for a user and returns the cookie secret and the session.
 pub async fn create(store: &Store, user: &User) -> StoreResult<(String, Session)> {

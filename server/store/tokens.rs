@@ -1,7 +1,6 @@
 //! API tokens: a random secret shown once; the database keeps its SHA-256, a short prefix to
 //! recognise it by, its scope, expiry and revocation.
 
-use serde::Serialize;
 use serde_json::json;
 use sqlx::Row;
 use sqlx::any::AnyRow;
@@ -9,53 +8,8 @@ use sqlx::any::AnyRow;
 use super::{Actor, Store, StoreError, StoreResult, WriteTx};
 use crate::auth::secret::{random_token, stored_hash};
 use crate::domain::User;
+use crate::domain::access::{Scope, TokenInfo};
 use crate::domain::{Roles, Timestamp};
-
-/// What a token may do.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Scope {
-    /// GET requests only.
-    Read,
-    /// Everything the token's owner may do.
-    Write,
-}
-
-impl Scope {
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Scope::Read => "read",
-            Scope::Write => "write",
-        }
-    }
-
-    pub fn parse(text: &str) -> Result<Scope, String> {
-        match text {
-            "read" => Ok(Scope::Read),
-            "write" => Ok(Scope::Write),
-            other => Err(format!("unknown scope {other:?}: expected read or write")),
-        }
-    }
-}
-
-#[derive(Clone, Debug, Serialize)]
-pub struct TokenInfo {
-    pub id: i64,
-    pub username: String,
-    pub prefix: String,
-    pub scope: Scope,
-    pub label: String,
-    pub created_at: Timestamp,
-    pub expires_at: Option<Timestamp>,
-    pub revoked_at: Option<Timestamp>,
-    pub last_used_at: Option<Timestamp>,
-}
-
-impl TokenInfo {
-    pub fn is_usable(&self, now: Timestamp) -> bool {
-        self.revoked_at.is_none() && self.expires_at.is_none_or(|t| t > now)
-    }
-}
 
 fn info_from_row(row: &AnyRow) -> StoreResult<TokenInfo> {
     let scope: String = row.try_get("scope")?;

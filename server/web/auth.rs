@@ -23,8 +23,9 @@ use super::AppState;
 use super::error::{ApiError, PageError};
 use crate::auth::secret::{constant_time_eq, random_token};
 use crate::domain::User;
-use crate::store::sessions::{self, Session};
-use crate::store::tokens::Scope;
+use crate::domain::access::Scope;
+use crate::domain::access::Session;
+use crate::ops::access;
 
 pub const SESSION_COOKIE: &str = "cutpoints_session";
 pub const SIGNIN_COOKIE: &str = "cutpoints_signin";
@@ -133,7 +134,7 @@ async fn resolve_inner(state: &AppState, mut req: Request) -> Result<Request, Re
             );
         }
         None => match read_cookie(req.headers(), SESSION_COOKIE) {
-            Some(secret) => match sessions::lookup(&state.store, &secret).await {
+            Some(secret) => match access::session(&state.store, &secret).await {
                 Ok(found) => found.map(Credential::Session),
                 Err(e) if is_api => return Err(ApiError::from(e).into_response()),
                 Err(e) => return Err(page_error(e.into())),

@@ -5,7 +5,7 @@ use serde_json::json;
 use tera::Context;
 
 use crate::domain::Role;
-use crate::store::sessions::Session;
+use crate::domain::access::Session;
 
 /// The context every page starts from: who is signed in, their CSRF token, the page title
 /// and which part of the navigation is current.

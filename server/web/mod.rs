@@ -11,7 +11,6 @@ pub mod pages;
 pub mod redirect;
 pub mod svg;
 pub mod templates;
-pub mod token_cache;
 
 use std::future::Future;
 use std::net::SocketAddr;
@@ -69,7 +68,7 @@ pub struct Shared {
     pub store: Store,
     pub config: Arc<WebConfig>,
     pub publisher: Arc<crate::publish::Publisher>,
-    pub tokens: Arc<token_cache::TokenCache>,
+    pub tokens: Arc<crate::ops::access::TokenCache>,
 }
 
 impl std::ops::Deref for AppState {

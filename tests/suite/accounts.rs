@@ -1,7 +1,7 @@
 //! Accounts, sign-in, sessions, CSRF, throttling and API tokens, checked against OWASP ASVS
 //! 4.0.3 and the OWASP cheat sheets named beside each test.
 
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use cutpoints::store::users;
 use reqwest::header::{RETRY_AFTER, SET_COOKIE};
 use serde_json::{Value, json};

@@ -3,7 +3,7 @@
 
 use cutpoints::audit::{Break, Entry, Event, GENESIS_HASH, Verifier, canonical_event, chain_hash};
 use cutpoints::domain::Timestamp;
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::{Value, json};
 
 use crate::cli::cutpoints;

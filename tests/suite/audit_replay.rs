@@ -2,7 +2,7 @@
 //! application's back are found by replaying the event record against the tables, and the
 //! publisher will not sign a version that does not match the event that approved it.
 
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::{Value, json};
 
 use crate::cli::cutpoints;

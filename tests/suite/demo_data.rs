@@ -3,7 +3,7 @@
 //! recorded at invented past times by the real workflow.
 
 use cutpoints::domain::Timestamp;
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::Value;
 
 use crate::helpers::{Backend, TestApp};

@@ -6,13 +6,13 @@
 use std::io::Write;
 use std::process::{Command, Stdio};
 
+use cutpoints::domain::access::Scope;
 use cutpoints::domain::observations::{from_csv, from_json};
 use cutpoints::domain::thresholds::{CutSet, Direction, Shades};
 use cutpoints::engine::backtest::{backtest, differences, grades};
 use cutpoints::engine::stats::{process_limits, quantile_type7, summary};
 use cutpoints::engine::warnings::warnings;
 use cutpoints::engine::{Zone, classify};
-use cutpoints::store::tokens::Scope;
 use proptest::prelude::*;
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};

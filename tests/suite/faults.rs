@@ -7,7 +7,7 @@ use std::process::{Child, Command, Stdio};
 use std::sync::Arc;
 use std::sync::atomic::Ordering;
 
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::{Value, json};
 
 use crate::helpers::{Backend, TestApp, missing_prerequisite};

@@ -4,9 +4,9 @@
 use std::sync::LazyLock;
 
 use cutpoints::domain::User;
+use cutpoints::domain::access::Scope;
 use cutpoints::domain::{Roles, Username};
 use cutpoints::ops::users::{By, add_with_hash};
-use cutpoints::store::tokens::Scope;
 use cutpoints::store::{Store, StoreSettings, events};
 use cutpoints::{AppState, WebConfig};
 use serde_json::Value;

@@ -179,7 +179,7 @@ on_both_backends! {
         let admin = app.signed_in("root").await;
         let mut answered: Vec<(String, String)> = Vec::new();
         for back in HOSTILE.iter().copied().chain(["/admin/\t/evil.example", "/admin/users/tomas"]) {
-            app.token("tomas", cutpoints::store::tokens::Scope::Read).await;
+            app.token("tomas", cutpoints::domain::access::Scope::Read).await;
             let tokens: Value = json!(cutpoints::store::tokens::list(&app.store, Some("tomas")).await.unwrap());
             let id = tokens.as_array().unwrap().iter().rfind(|t| t["revoked_at"].is_null()).unwrap()["id"].as_i64().unwrap();
             let r = admin.post_form("/admin/tokens", &format!("/admin/tokens/{id}/revoke"), &[("back", back)]).await;

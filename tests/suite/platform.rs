@@ -3,9 +3,9 @@
 
 use std::collections::HashSet;
 
+use cutpoints::domain::access::Scope;
 use cutpoints::store::Store;
 use cutpoints::store::events::{GENESIS_HASH, chain_hash};
-use cutpoints::store::tokens::Scope;
 use serde_json::Value;
 
 use crate::cli::{cutpoints, cutpoints_with_stdin};

@@ -1,6 +1,6 @@
 //! The metric register through `/api/v1/metrics`.
 
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::{Value, json};
 
 use crate::helpers::TestApp;

@@ -153,7 +153,7 @@ async fn serve_runs_on_the_named_database_and_stops_on_sigterm() {
 crate::on_both_backends! {
     async fn serve_answers_from_several_threads_sharing_one_pool_and_refuses_a_taken_port(app) {
         app.add_user("rosa", "admin").await;
-        let token = app.token("rosa", cutpoints::store::tokens::Scope::Read).await;
+        let token = app.token("rosa", cutpoints::domain::access::Scope::Read).await;
         let port = std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port();
         let bind = format!("127.0.0.1:{port}");
         let start = |threads: &str| {

@@ -3,7 +3,7 @@
 
 use std::sync::Arc;
 
-use cutpoints::store::tokens::Scope;
+use cutpoints::domain::access::Scope;
 use serde_json::{Value, json};
 
 use crate::on_both_backends;

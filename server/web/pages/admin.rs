@@ -9,11 +9,11 @@ use serde_json::json;
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
 use crate::domain::Problems;
+use crate::domain::access::Scope;
+use crate::domain::access::Session;
 use crate::domain::{Role, Timestamp, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
-use crate::store::sessions::Session;
-use crate::store::tokens::Scope;
 use crate::store::{StoreError, tokens, users};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
@@ -135,7 +135,7 @@ pub async fn user_create(
 fn user_page(
     session: &Session,
     person: &crate::domain::User,
-    person_tokens: &[tokens::TokenInfo],
+    person_tokens: &[crate::domain::access::TokenInfo],
     notice: Option<&str>,
     problems: &Problems,
     status: StatusCode,
@@ -280,9 +280,9 @@ pub async fn user_password(
 
 fn tokens_page(
     session: &Session,
-    all: &[tokens::TokenInfo],
+    all: &[crate::domain::access::TokenInfo],
     people: &[crate::domain::User],
-    issued: Option<(&str, &tokens::TokenInfo)>,
+    issued: Option<(&str, &crate::domain::access::TokenInfo)>,
     form: Option<&FormFields>,
     problems: &Problems,
     status: StatusCode,
