@@ -15,8 +15,8 @@ use super::{
 use crate::domain::Timestamp;
 use crate::domain::access::Scope;
 use crate::ops::OpError;
+use crate::ops::Store;
 use crate::ops::users::{self as user_ops, By, NewUser};
-use crate::store::{Store, users};
 use crate::web::{AppState, WebConfig};
 
 /// Runs a subcommand; a command that checks something (`audit verify`) may end with a code
@@ -126,7 +126,7 @@ async fn serve(args: ServeArgs) -> anyhow::Result<()> {
     } else {
         Store::open_with(&args.db.database_url, args.db.settings()).await?
     };
-    if users::count(&store).await? == 0 {
+    if user_ops::count(&store).await.map_err(explain)? == 0 {
         tracing::warn!(
             "no people yet: add the first admin with `cutpoints user add --username NAME --role admin --password-stdin`"
         );
@@ -257,7 +257,7 @@ async fn user(cmd: UserCommand) -> anyhow::Result<()> {
         }
         UserCommand::List { db } => {
             let store = Store::open_with(&db.database_url, db.settings()).await?;
-            for u in users::list(&store).await? {
+            for u in user_ops::list(&store).await.map_err(explain)? {
                 println!(
                     "{}\t{}\t{}\t{}",
                     u.username,
@@ -363,8 +363,8 @@ async fn token(cmd: TokenCommand) -> anyhow::Result<()> {
 }
 
 async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
+    use crate::domain::observations::Mode;
     use crate::ops::uploads::{self, Format, Uploader};
-    use crate::store::observations::Mode;
     use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
     use sha2::{Digest, Sha256};
     let ObservationsCommand::Import {
@@ -381,9 +381,9 @@ async fn observations(cmd: ObservationsCommand) -> anyhow::Result<()> {
     };
     let store = Store::open_with(&db.database_url, db.settings()).await?;
     // The metric first, so a wrong key is said before a large file is read.
-    crate::store::metrics::get(&store, &metric)
+    crate::ops::metrics::get(&store, &metric)
         .await
-        .map_err(|e| explain(e.into()))?;
+        .map_err(explain)?;
     let bytes = std::fs::read(&file).with_context(|| format!("reading {}", file.display()))?;
     let bar = ProgressBar::new(bytes.len() as u64);
     if quiet {
@@ -458,8 +458,9 @@ async fn policy(cmd: PolicyCommand) -> anyhow::Result<()> {
             .await
             .map_err(explain)?;
     }
-    let mut conn = store.read().await?;
-    let n = crate::store::policy::reviewers_required(&mut conn).await?;
+    let n = crate::ops::proposals::reviewers_required(&store)
+        .await
+        .map_err(explain)?;
     println!("reviewers_required = {n}");
     Ok(())
 }
@@ -472,9 +473,9 @@ async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
         .transpose()
         .map_err(|e| anyhow::anyhow!("--known-head {e}"))?;
     let store = Store::open_with(&db.database_url, db.settings()).await?;
-    let v = crate::ops::audit::Verification::from_finding(
-        crate::store::audited::check(&store, known).await?,
-    );
+    let v = crate::ops::audit::verify_as_operator(&store, known)
+        .await
+        .map_err(explain)?;
     if v.ok {
         println!("{}", v.line);
         return Ok(ExitCode::SUCCESS);

@@ -35,8 +35,8 @@ pub struct DatabaseArgs {
 }
 
 impl DatabaseArgs {
-    pub fn settings(&self) -> crate::store::StoreSettings {
-        crate::store::StoreSettings {
+    pub fn settings(&self) -> crate::ops::StoreSettings {
+        crate::ops::StoreSettings {
             timeout: self.db_timeout,
         }
     }

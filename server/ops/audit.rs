@@ -15,7 +15,8 @@ use crate::engine::changes::compare;
 use crate::engine::workflow::signoff_reasons;
 use crate::store::Store;
 use crate::store::audited::{self, Finding};
-use crate::store::events::{self, EventFilter};
+use crate::store::events;
+pub use crate::store::events::EventFilter;
 use crate::store::metrics::{self, MetricFilter};
 use crate::store::versions::{self, VersionRecord};
 
@@ -469,6 +470,14 @@ pub async fn verify(
     known: Option<(i64, String)>,
 ) -> OpResult<Verification> {
     require_auditor(by)?;
+    verify_as_operator(store, known).await
+}
+
+/// The full check for the operator at the command line (`cutpoints audit verify`).
+pub async fn verify_as_operator(
+    store: &Store,
+    known: Option<(i64, String)>,
+) -> OpResult<Verification> {
     Ok(Verification::from_finding(
         audited::check(store, known).await?,
     ))

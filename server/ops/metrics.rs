@@ -188,3 +188,20 @@ pub async fn edit(store: &Store, by: &User, key: &str, input: &MetricEdit) -> Op
     w.commit().await?;
     Ok(metric)
 }
+
+pub use crate::store::metrics::{MetricFilter, MetricPage, PER_PAGE_DEFAULT, PER_PAGE_MAX};
+
+/// A metric of the register (404 when there is none with that key).
+pub async fn get(store: &Store, key: &str) -> OpResult<Metric> {
+    Ok(crate::store::metrics::get(store, key).await?)
+}
+
+/// One page of the register, as the filter asks.
+pub async fn list(
+    store: &Store,
+    filter: &MetricFilter,
+    page: i64,
+    per_page: i64,
+) -> OpResult<MetricPage> {
+    Ok(crate::store::metrics::list(store, filter, page, per_page).await?)
+}

@@ -720,6 +720,11 @@ pub async fn reject(store: &Store, by: &User, id: i64, reason: &str) -> OpResult
     Ok(())
 }
 
+/// The approval policy: how many current reviewer approvals a proposal needs.
+pub async fn reviewers_required(store: &Store) -> OpResult<u32> {
+    Ok(policy::reviewers_required(&mut store.read().await?).await?)
+}
+
 /// Changes the approval policy (admins or the operator), recorded with before and after.
 pub async fn set_reviewers_required(
     store: &Store,

@@ -6,6 +6,10 @@ use super::OpResult;
 use crate::domain::Timestamp;
 use crate::domain::proposal::cuts_object;
 use crate::store::versions::{self, VersionRecord};
+use std::sync::Arc;
+
+use crate::publish::Publisher;
+use crate::publish::document::Rendered;
 use crate::store::{Store, StoreError};
 
 /// A version as a change list shows it.
@@ -109,4 +113,25 @@ pub async fn metric_keys(store: &Store) -> OpResult<std::collections::HashSet<St
         .await
         .map_err(StoreError::from)?;
     Ok(keys.into_iter().collect())
+}
+
+/// The published set in force now, rendered once per set revision.
+pub async fn current(publisher: &Publisher, store: &Store) -> OpResult<Arc<Rendered>> {
+    Ok(publisher.current(store).await?)
+}
+
+/// The published set at the requested times, or narrowed to one metric.
+pub async fn at(
+    publisher: &Publisher,
+    store: &Store,
+    as_of: Option<Timestamp>,
+    known_at: Option<Timestamp>,
+    only: Option<&str>,
+) -> OpResult<Arc<Rendered>> {
+    Ok(publisher.at(store, as_of, known_at, only).await?)
+}
+
+/// The signing keys, current and retired.
+pub async fn keys(store: &Store) -> OpResult<Vec<crate::publish::signing::PublicKey>> {
+    Ok(crate::publish::signing::registry(store).await?)
 }

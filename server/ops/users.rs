@@ -243,3 +243,18 @@ pub async fn list_tokens(
     let username = username.map(named).transpose()?;
     Ok(tokens::list(store, username.as_ref().map(Username::as_str)).await?)
 }
+
+/// A person by username (404 when there is none).
+pub async fn get(store: &Store, username: &str) -> OpResult<User> {
+    Ok(users::get(store, username).await?)
+}
+
+/// Everyone with an account, in username order.
+pub async fn list(store: &Store) -> OpResult<Vec<User>> {
+    Ok(users::list(store).await?)
+}
+
+/// How many active people exist (`serve` warns when there is nobody yet).
+pub async fn count(store: &Store) -> OpResult<i64> {
+    Ok(users::count(store).await?)
+}

@@ -12,7 +12,8 @@ use crate::domain::proposal::cuts_object;
 use crate::engine::canonical::unified_diff;
 use crate::engine::changes::{FieldChanges, compare};
 use crate::store::Store;
-use crate::store::versions::{self, VersionRecord, VersionStatus};
+use crate::store::versions;
+pub use crate::store::versions::{VersionRecord, VersionStatus};
 
 /// A version as the API and pages show it.
 #[derive(Clone, Debug, Serialize)]

@@ -279,14 +279,25 @@ pub async fn discard(store: &Store, history: i64) -> StoreResult<u64> {
         .execute(&mut tx)
         .await?;
         deleted += step.rows_affected();
-        if step.rows_affected() == 0 {
+        // Another discard of the same history (the sweep beside an upload's own) may have
+        // taken this step's rows: on PostgreSQL the statement then deletes none while rows
+        // remain. So the history goes only once none of its rows are left.
+        let done = step.rows_affected() == 0
+            && sqlx::query_scalar::<_, i64>(
+                "SELECT COUNT(*) FROM (SELECT 1 FROM observations WHERE history_id = $1 LIMIT 1) AS left_over",
+            )
+            .bind(history)
+            .fetch_one(&mut tx)
+            .await?
+                == 0;
+        if done {
             sqlx::query("DELETE FROM histories WHERE id = $1 AND state <> 'live'")
                 .bind(history)
                 .execute(&mut tx)
                 .await?;
         }
         tx.commit().await?;
-        if step.rows_affected() == 0 {
+        if done {
             return Ok(deleted);
         }
     }

@@ -8,7 +8,6 @@ use serde_json::json;
 
 use crate::domain::Problems;
 use crate::ops::OpError;
-use crate::store::StoreError;
 
 /// An error answer: status, a stable machine code, a message for people, and for validation
 /// errors the problem of each field.
@@ -102,46 +101,6 @@ pub const BUSY_RETRY_SECONDS: u64 = 1;
 /// Retry-After when the database did not answer: a restart takes seconds.
 pub const UNAVAILABLE_RETRY_SECONDS: u64 = 5;
 
-impl From<StoreError> for ApiError {
-    fn from(e: StoreError) -> Self {
-        match e {
-            StoreError::NotFound(m) => ApiError::not_found(m),
-            StoreError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
-            StoreError::Invalid(p) => ApiError::invalid(p),
-            StoreError::Busy(why) => {
-                tracing::warn!(reason = %why, "database busy; answered 503");
-                ApiError {
-                    retry_after: Some(BUSY_RETRY_SECONDS),
-                    ..ApiError::new(
-                        StatusCode::SERVICE_UNAVAILABLE,
-                        "busy",
-                        "the database is busy with other changes and nothing was changed; try again shortly",
-                    )
-                }
-            }
-            StoreError::Unavailable(err) => {
-                tracing::error!(error = %err, "database unavailable");
-                ApiError {
-                    retry_after: Some(UNAVAILABLE_RETRY_SECONDS),
-                    ..ApiError::new(
-                        StatusCode::SERVICE_UNAVAILABLE,
-                        "unavailable",
-                        "the database is not answering and nothing was changed; try again shortly",
-                    )
-                }
-            }
-            StoreError::Database(err) => {
-                tracing::error!(error = %err, "database error");
-                ApiError::internal()
-            }
-            StoreError::Config(m) => {
-                tracing::error!(error = %m, "configuration error");
-                ApiError::internal()
-            }
-        }
-    }
-}
-
 impl From<OpError> for ApiError {
     fn from(e: OpError) -> Self {
         match e {
@@ -164,7 +123,33 @@ impl From<OpError> for ApiError {
             OpError::Conflict(m) => ApiError::new(StatusCode::CONFLICT, "conflict", m),
             OpError::BadCredentials(m) => ApiError::unauthorized(m),
             OpError::Throttled(seconds) => ApiError::throttled(seconds),
-            OpError::Store(s) => s.into(),
+            OpError::NotFound(m) => ApiError::not_found(m),
+            OpError::Busy(why) => {
+                tracing::warn!(reason = %why, "database busy; answered 503");
+                ApiError {
+                    retry_after: Some(BUSY_RETRY_SECONDS),
+                    ..ApiError::new(
+                        StatusCode::SERVICE_UNAVAILABLE,
+                        "busy",
+                        "the database is busy with other changes and nothing was changed; try again shortly",
+                    )
+                }
+            }
+            OpError::Unavailable(why) => {
+                tracing::error!(error = %why, "database unavailable");
+                ApiError {
+                    retry_after: Some(UNAVAILABLE_RETRY_SECONDS),
+                    ..ApiError::new(
+                        StatusCode::SERVICE_UNAVAILABLE,
+                        "unavailable",
+                        "the database is not answering and nothing was changed; try again shortly",
+                    )
+                }
+            }
+            OpError::Internal(why) => {
+                tracing::error!(error = %why, "internal error");
+                ApiError::internal()
+            }
         }
     }
 }
@@ -196,12 +181,6 @@ pub struct PageError(pub ApiError);
 impl From<ApiError> for PageError {
     fn from(e: ApiError) -> Self {
         PageError(e)
-    }
-}
-
-impl From<StoreError> for PageError {
-    fn from(e: StoreError) -> Self {
-        PageError(e.into())
     }
 }
 

@@ -25,7 +25,7 @@ use axum::{Json, Router};
 use serde_json::json;
 use tokio::net::TcpListener;
 
-use crate::store::Store;
+use crate::ops::Store;
 use error::{ApiError, PageError};
 
 /// Settings of the web layer.

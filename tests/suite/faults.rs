@@ -241,6 +241,23 @@ async fn leftovers(app: &TestApp) -> u64 {
 }
 
 crate::on_both_backends! {
+    async fn two_deletions_of_one_history_at_once_leave_none_of_it(app) {
+        // An upload deletes the history it retired in the background while the upkeep's sweep
+        // may take the same one: on PostgreSQL one DELETE step then finds its rows gone under
+        // it. Whichever finishes, the history and all its rows are gone.
+        use cutpoints::store::observations as rows;
+        let team = Team::new(app).await;
+        let store = &team.app.store;
+        let metric = cutpoints::store::metrics::get(store, METRIC).await.unwrap();
+        let observations = cutpoints::domain::observations::from_csv(hourly_csv(0, 40_000, 1.0).as_bytes(), |_| {}).unwrap();
+        let history = rows::start(store, metric.id).await.unwrap();
+        rows::add(store, history, &observations, |_| {}).await.unwrap();
+        assert_eq!(rows::not_live(store).await.unwrap(), 40_000);
+        let (a, b, c) = tokio::join!(rows::discard(store, history), rows::discard(store, history), rows::discard(store, history));
+        assert_eq!(a.unwrap() + b.unwrap() + c.unwrap(), 40_000, "every row deleted once");
+        assert_eq!(rows::not_live(store).await.unwrap(), 0);
+    }
+
     async fn an_upload_whose_client_goes_away_leaves_no_rows_behind(app) {
         let team = Team::new(app).await;
         let (status, body) = upload_csv(&team, "replace", hourly_csv(0, 10, 1.0)).await;

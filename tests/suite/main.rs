@@ -3,6 +3,7 @@
 //! throwaway cluster the run starts itself (DEVELOPERS.md, "Testing").
 
 mod helpers;
+mod layers;
 
 mod accounts;
 mod audit_chain;

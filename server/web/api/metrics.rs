@@ -12,8 +12,8 @@ use serde_json::json;
 
 use crate::domain::MetricKey;
 use crate::ops;
+use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, NewMetric};
-use crate::store::metrics::{self, MetricFilter};
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;

@@ -136,10 +136,7 @@ async fn rendered(
     only: Option<&str>,
 ) -> Result<Arc<Rendered>, ApiError> {
     let (as_of, known_at) = q.times()?;
-    Ok(state
-        .publisher
-        .at(&state.store, as_of, known_at, only)
-        .await?)
+    Ok(crate::ops::publication::at(&state.publisher, &state.store, as_of, known_at, only).await?)
 }
 
 /// `GET /api/v1/published[?as_of=T&known_at=R]`.
@@ -211,7 +208,7 @@ pub async fn one(
     ApiQuery(q): ApiQuery<TimesQuery>,
 ) -> Result<Response, ApiError> {
     let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
-    crate::store::metrics::get(&state.store, key.as_str()).await?;
+    crate::ops::metrics::get(&state.store, key.as_str()).await?;
     let r = rendered(&state, &q, Some(key.as_str())).await?;
     if r.document["set"].get(key.as_str()).is_none() {
         return Err(ApiError::not_found(format!(
@@ -243,7 +240,9 @@ pub async fn changes(
     _reader: Reader,
     ApiQuery(q): ApiQuery<ChangesQuery>,
 ) -> Result<Response, ApiError> {
-    let current = state.publisher.current(&state.store).await?.set_revision;
+    let current = crate::ops::publication::current(&state.publisher, &state.store)
+        .await?
+        .set_revision;
     let (Some(from), Some(to)) = (q.from, q.to) else {
         return Err(ApiError::bad_request(
             "give both from and to (set revisions)",
@@ -262,7 +261,7 @@ pub async fn changes(
 #[utoipa::path(get, path = "/v1/keys", operation_id = "listSigningKeys", tag = "published",
     responses((status = 200, description = "Every signing key, current and retired", body = KeyList), (status = 401, description = "No valid credential", body = ErrorBody)))]
 pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Response, ApiError> {
-    let keys = crate::publish::signing::registry(&state.store).await?;
+    let keys = crate::ops::publication::keys(&state.store).await?;
     Ok(Json(json!({"keys": keys})).into_response())
 }
 
@@ -336,7 +335,7 @@ pub async fn evaluate(
         ));
     }
     let as_of = time_param("as_of", req.as_of.as_deref().unwrap_or(""))?;
-    let r = state.publisher.at(&state.store, as_of, None, None).await?;
+    let r = crate::ops::publication::at(&state.publisher, &state.store, as_of, None, None).await?;
     // Keys of the register, read once and only when some item has no version in force.
     let mut register: Option<std::collections::HashSet<String>> = None;
     let mut results = Vec::with_capacity(req.values.len());

@@ -14,7 +14,6 @@ use crate::domain::access::Session;
 use crate::domain::{Role, Timestamp, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
-use crate::store::{StoreError, tokens, users};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -56,7 +55,7 @@ pub async fn users_list(
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
-    let people = users::list(&state.store).await?;
+    let people = user_ops::list(&state.store).await?;
     let mut ctx = base_context(Some(&session), "People", "people");
     ctx.insert("people", &people);
     Ok(page("admin_users.html", &ctx))
@@ -97,10 +96,8 @@ pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response
 /// Problems a form can show beside its fields; anything else becomes an error page.
 fn form_problems(err: OpError, conflict_field: &str) -> Result<(Problems, StatusCode), PageError> {
     match err {
-        OpError::Invalid(p) | OpError::Store(StoreError::Invalid(p)) => {
-            Ok((p, StatusCode::BAD_REQUEST))
-        }
-        OpError::Store(StoreError::Conflict(m)) => {
+        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
+        OpError::Conflict(m) => {
             let mut p = Problems::default();
             p.add(conflict_field, m);
             Ok((p, StatusCode::CONFLICT))
@@ -174,8 +171,9 @@ pub async fn user_detail(
     PageQuery(query): PageQuery<SavedQuery>,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
-    let person = users::get(&state.store, &username).await?;
-    let person_tokens = tokens::list(&state.store, Some(&username)).await?;
+    let person = user_ops::get(&state.store, &username).await?;
+    let person_tokens =
+        user_ops::list_tokens(&state.store, By::Person(&session.user), Some(&username)).await?;
     let notice = match query.saved.as_str() {
         "added" => Some("The person was added. They can sign in now."),
         "details" => Some("Display name and roles saved."),
@@ -203,8 +201,9 @@ async fn reshow_user(
     err: OpError,
 ) -> Result<Response, PageError> {
     let (p, status) = form_problems(err, "roles")?;
-    let person = users::get(&state.store, username).await?;
-    let person_tokens = tokens::list(&state.store, Some(username)).await?;
+    let person = user_ops::get(&state.store, username).await?;
+    let person_tokens =
+        user_ops::list_tokens(&state.store, By::Person(&session.user), Some(username)).await?;
     Ok(user_page(
         session,
         &person,
@@ -321,8 +320,8 @@ pub async fn tokens_list(
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
-    let all = tokens::list(&state.store, None).await?;
-    let people = users::list(&state.store).await?;
+    let all = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
+    let people = user_ops::list(&state.store).await?;
     Ok(tokens_page(
         &session,
         &all,
@@ -380,7 +379,7 @@ pub async fn token_issue(
         )
         .await
         .map_err(|e| match e {
-            OpError::Store(StoreError::NotFound(m)) => {
+            OpError::NotFound(m) => {
                 let mut p = Problems::default();
                 p.add("username", m);
                 OpError::Invalid(p)
@@ -389,10 +388,11 @@ pub async fn token_issue(
         }),
         _ => Err(OpError::Invalid(problems)),
     };
-    let people = users::list(&state.store).await?;
+    let people = user_ops::list(&state.store).await?;
     match result {
         Ok((secret, info)) => {
-            let listed = tokens::list(&state.store, None).await?;
+            let listed =
+                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
             Ok(tokens_page(
                 &session,
                 &listed,
@@ -405,7 +405,8 @@ pub async fn token_issue(
         }
         Err(e) => {
             let (p, status) = form_problems(e, "label")?;
-            let listed = tokens::list(&state.store, None).await?;
+            let listed =
+                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
             Ok(tokens_page(
                 &session,
                 &listed,

@@ -8,7 +8,7 @@ use serde_json::json;
 use super::{PageQuery, base_context, page};
 use crate::domain::{MetricKey, Timestamp};
 use crate::ops::audit;
-use crate::store::metrics::{self, MetricFilter};
+use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::web::AppState;
 use crate::web::api::audit::{AsOfQuery, ExtractQuery};
 use crate::web::auth::PageSession;

@@ -7,13 +7,13 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde_json::{Value, json};
 
+use crate::domain::observations::Mode;
 use crate::domain::thresholds::{CutSet, Shades};
 use crate::domain::{MetricKey, number};
 use crate::engine::warnings::{DEFAULT_CRITICAL_SHARE, percent, round_for_text};
 use crate::ops::evidence::{self, History};
 use crate::ops::uploads::{self, Format, Uploader};
-use crate::store::observations::Mode;
-use crate::store::versions::VersionRecord;
+use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
 use crate::web::auth::{CSRF_FIELD, PageSession};
 use crate::web::error::{ApiError, PageError};

@@ -12,10 +12,9 @@ use crate::domain::Problems;
 use crate::domain::access::Session;
 use crate::domain::metric::split_list;
 use crate::domain::{MetricKey, Role};
+use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
-use crate::store::StoreError;
-use crate::store::metrics::{self, MetricFilter};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -333,10 +332,8 @@ fn reshow_or_fail(
     show: impl FnOnce(&Problems, StatusCode) -> Response,
 ) -> Result<Response, PageError> {
     match err {
-        OpError::Invalid(p) | OpError::Store(StoreError::Invalid(p)) => {
-            Ok(show(&p, StatusCode::BAD_REQUEST))
-        }
-        OpError::Store(StoreError::Conflict(m)) => {
+        OpError::Invalid(p) => Ok(show(&p, StatusCode::BAD_REQUEST)),
+        OpError::Conflict(m) => {
             let mut p = Problems::default();
             p.add(conflict_field, m);
             Ok(show(&p, StatusCode::CONFLICT))

@@ -18,10 +18,9 @@ use crate::domain::thresholds::{CutSet, Direction};
 use crate::domain::{MetricKey, Role};
 use crate::engine::workflow::{self, Decision};
 use crate::ops::OpError;
+use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, ProposalView, RevisionInput};
-use crate::store::StoreError;
-use crate::store::metrics;
-use crate::store::versions::VersionRecord;
+use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -311,9 +310,7 @@ fn refusal_page(r: workflow::Refusal) -> PageError {
 /// Validation problems go back to the form; everything else is an error page.
 fn form_problems(e: OpError) -> Result<(Problems, StatusCode), PageError> {
     match e {
-        OpError::Invalid(p) | OpError::Store(StoreError::Invalid(p)) => {
-            Ok((p, StatusCode::BAD_REQUEST))
-        }
+        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
         OpError::Conflict(m) => {
             let mut p = Problems::default();
             p.add("form", m);

@@ -28,7 +28,7 @@ pub struct SetQuery {
 
 /// Checks a document's signature against the registered public key it names.
 async fn signature_status(state: &AppState, doc: &Value) -> Result<String, PageError> {
-    let keys = crate::publish::signing::registry(&state.store).await?;
+    let keys = crate::ops::publication::keys(&state.store).await?;
     let key_id = doc["meta"]["key_id"].as_str().unwrap_or("");
     let Some(key) = keys.iter().find(|k| k.key_id == key_id) else {
         return Ok(format!(
@@ -75,7 +75,7 @@ pub async fn set(
                 .map_err(|e| PageError(ApiError::bad_request(e.to_string())))?,
         )
     };
-    let r = state.publisher.at(&state.store, as_of, None, None).await?;
+    let r = crate::ops::publication::at(&state.publisher, &state.store, as_of, None, None).await?;
     let doc = &r.document;
     let mut metrics = Vec::new();
     if let Some(set) = doc["set"].as_object() {
@@ -149,7 +149,9 @@ pub async fn changes(
     PageSession(session): PageSession,
     PageQuery(q): PageQuery<SetQuery>,
 ) -> Result<Response, PageError> {
-    let current = state.publisher.current(&state.store).await?.set_revision;
+    let current = crate::ops::publication::current(&state.publisher, &state.store)
+        .await?
+        .set_revision;
     let from = q.from.trim().parse::<i64>().ok();
     let to = q.to.trim().parse::<i64>().ok();
     let mut ctx = base_context(Some(&session), "Changes between set revisions", "published");
