@@ -842,7 +842,7 @@ async fn tell(
 
 /// The hash of the proposal's latest revision, which verdicts and sign-offs bind to.
 async fn latest_hash(store: &Store, id: i64) -> OpResult<String> {
-    Ok(flow::get(store, id).await?.0.latest_revision.hash)
+    Ok(flow::get(store, id, None).await?.view.latest_revision.hash)
 }
 
 /// Hashes every demo password, in parallel on the blocking pool.

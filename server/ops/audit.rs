@@ -77,7 +77,9 @@ pub async fn timeline(store: &Store, by: &User, key: &str) -> OpResult<Timeline>
     let history = super::versions::history(store, &metric).await?;
     let mut versions = Vec::new();
     for v in history.into_iter().rev() {
-        let (p, _) = super::proposals::get(store, v.proposal_id).await?;
+        let p = super::proposals::get(store, v.proposal_id, None)
+            .await?
+            .view;
         versions.push(TimelineEntry {
             reviews: p.reviews,
             signoffs: p.signoffs,

@@ -269,6 +269,13 @@ pub async fn discard(store: &Store, history: i64) -> StoreResult<u64> {
     let mut deleted = 0;
     loop {
         let mut tx = store.begin_unrecorded().await?;
+        // Two deletions of one history take turns (on PostgreSQL the history's row lock;
+        // SQLite has one writer anyway), so neither deletes rows in an order that deadlocks
+        // with the other's.
+        sqlx::query("UPDATE histories SET touched_at = touched_at WHERE id = $1")
+            .bind(history)
+            .execute(&mut tx)
+            .await?;
         let step = sqlx::query(
             "DELETE FROM observations WHERE history_id = $1 AND period_start IN \
              (SELECT period_start FROM observations WHERE history_id = $1 \
@@ -279,9 +286,7 @@ pub async fn discard(store: &Store, history: i64) -> StoreResult<u64> {
         .execute(&mut tx)
         .await?;
         deleted += step.rows_affected();
-        // Another discard of the same history (the sweep beside an upload's own) may have
-        // taken this step's rows: on PostgreSQL the statement then deletes none while rows
-        // remain. So the history goes only once none of its rows are left.
+        // The history goes only once none of its rows are left.
         let done = step.rows_affected() == 0
             && sqlx::query_scalar::<_, i64>(
                 "SELECT COUNT(*) FROM (SELECT 1 FROM observations WHERE history_id = $1 LIMIT 1) AS left_over",

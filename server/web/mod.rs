@@ -3,6 +3,7 @@
 
 pub mod api;
 pub mod auth;
+pub mod diff_html;
 pub mod error;
 pub mod extract;
 pub mod history_chart;

@@ -52,6 +52,10 @@ static TERA: LazyLock<Tera> = LazyLock::new(|| {
     tera.register_filter("num", |v: f64, _: Kwargs, _: &State| {
         crate::domain::number::format(v)
     });
+    // A unified diff as HTML (web/diff_html.rs).
+    tera.register_filter("diff", |s: &str, _: Kwargs, _: &State| {
+        tera::Value::safe_string(&super::diff_html::diff_html(s))
+    });
     tera.add_raw_templates(TEMPLATES.iter().copied())
         .expect("the page templates parse");
     tera

@@ -571,3 +571,39 @@ on_both_backends! {
         team.app.store.set_clock(None);
     }
 }
+
+on_both_backends! {
+    async fn a_proposal_read_says_what_the_caller_may_do_next(app) {
+        // Decided by the same rules the steps apply, from who the caller is.
+        let team = Team::new(app).await;
+        let (status, p) = team.propose("tomas", hib(50.0, 70.0, 80.0, 90.0, "First agreed set.")).await;
+        assert_eq!(status, 201, "{p}");
+        let id = id_of(&p);
+        let allowed = |who: &'static str| {
+            let team = &team;
+            async move {
+                let (status, body) = team.call(who, "GET", &format!("/api/v1/proposals/{id}"), None).await;
+                assert_eq!(status, 200, "{body}");
+                body["allowed"].clone()
+            }
+        };
+        let none = json!({"revise": false, "submit": false, "approve": false, "send_back": false, "sign": false, "withdraw": false, "reject": false});
+        // A draft: its author may revise, submit and withdraw it; a reviewer may do nothing yet.
+        assert_eq!(allowed("tomas").await, json!({"revise": true, "submit": true, "approve": false, "send_back": false, "sign": false, "withdraw": true, "reject": false}));
+        assert_eq!(allowed("kofi").await, none);
+        assert_eq!(allowed("wren").await, none);
+        let (status, body) = team.act("tomas", id, "submit", None).await;
+        assert_eq!(status, 200, "{body}");
+        // In review: a reviewer may approve, send back or reject; a signatory may sign (this
+        // set has never been approved), send back or reject; the author may not approve their
+        // own.
+        assert_eq!(allowed("kofi").await, json!({"revise": false, "submit": false, "approve": true, "send_back": true, "sign": false, "withdraw": false, "reject": true}));
+        assert_eq!(allowed("odile").await, json!({"revise": false, "submit": false, "approve": false, "send_back": true, "sign": true, "withdraw": false, "reject": true}));
+        assert_eq!(allowed("tomas").await["approve"], false);
+        assert_eq!(allowed("tomas").await["withdraw"], true);
+        // Once kofi approved, he may not approve again.
+        let (status, body) = team.approve("kofi", id).await;
+        assert_eq!(status, 200, "{body}");
+        assert_eq!(allowed("kofi").await["approve"], false);
+    }
+}

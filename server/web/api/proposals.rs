@@ -59,10 +59,11 @@ impl<T: DeserializeOwned + Default> FromRequest<AppState> for OptionalJson<T> {
 
 async fn proposal_response(
     state: &AppState,
+    caller: &ApiCaller,
     id: i64,
     status: StatusCode,
 ) -> Result<Response, ApiError> {
-    let (view, _) = flow::get(&state.store, id).await?;
+    let view = flow::get(&state.store, id, Some(caller.user())).await?.view;
     let mut response = (status, Json(view)).into_response();
     if status == StatusCode::CREATED {
         response.headers_mut().insert(
@@ -85,7 +86,7 @@ pub async fn create(
     ApiJson(input): ApiJson<ContentInput>,
 ) -> Result<Response, ApiError> {
     let id = flow::propose(&state.store, caller.user(), key.as_str(), &input).await?;
-    proposal_response(&state, id, StatusCode::CREATED).await
+    proposal_response(&state, &caller, id, StatusCode::CREATED).await
 }
 
 /// `GET /api/v1/proposals/{id}`.
@@ -94,10 +95,10 @@ pub async fn create(
     responses((status = 200, description = "The proposal", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
 pub async fn show(
     State(state): State<AppState>,
-    _caller: ApiCaller,
+    caller: ApiCaller,
     ProposalId(id): ProposalId,
 ) -> Result<Response, ApiError> {
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 /// `PUT /api/v1/proposals/{id}`: a new revision (drafts and proposals sent back).
@@ -112,7 +113,7 @@ pub async fn revise(
     ApiJson(input): ApiJson<RevisionInput>,
 ) -> Result<Response, ApiError> {
     flow::revise(&state.store, caller.user(), id, &input).await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/submit`: asks for review.
@@ -125,7 +126,7 @@ pub async fn submit(
     ProposalId(id): ProposalId,
 ) -> Result<Response, ApiError> {
     flow::submit(&state.store, caller.user(), id).await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -156,7 +157,7 @@ pub async fn comment(
         input.cut.as_deref(),
     )
     .await?;
-    proposal_response(&state, id, StatusCode::CREATED).await
+    proposal_response(&state, &caller, id, StatusCode::CREATED).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -199,7 +200,7 @@ pub async fn review(
         &input.comment,
     )
     .await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -230,7 +231,7 @@ pub async fn signoff(
         &input.password,
     )
     .await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -252,7 +253,7 @@ pub async fn withdraw(
     OptionalJson(input): OptionalJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
     flow::withdraw(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/reject`: a reviewer or signatory rejects it, with a reason.
@@ -267,7 +268,7 @@ pub async fn reject(
     ApiJson(input): ApiJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
     flow::reject(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, id, StatusCode::OK).await
+    proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
 /// `GET /api/v1/metrics/{key}/history`: every version, oldest first.

@@ -39,19 +39,8 @@ pub async fn timeline(
 ) -> Result<Response, PageError> {
     let key = MetricKey::parse(&key).map_err(|e| PageError(ApiError::not_found(e.to_string())))?;
     let t = audit::timeline(&state.store, &session.user, key.as_str()).await?;
-    let diffs: std::collections::BTreeMap<String, String> = t
-        .versions
-        .iter()
-        .map(|e| {
-            (
-                e.version.number.to_string(),
-                super::proposals::diff_html(&e.version.diff_from_previous),
-            )
-        })
-        .collect();
     let mut ctx = base_context(Some(&session), &format!("Why {} moved", t.name), "audit");
     ctx.insert("t", &t);
-    ctx.insert("diffs", &diffs);
     Ok(page("audit_timeline.html", &ctx))
 }
 

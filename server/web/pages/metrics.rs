@@ -116,7 +116,11 @@ pub async fn detail(
     let open = thresholds.open_proposal();
     let proposals = &thresholds.proposals;
     let open_view = match open {
-        Some(p) => Some(crate::ops::proposals::get(&state.store, p.id).await?.0),
+        Some(p) => Some(
+            crate::ops::proposals::get(&state.store, p.id, Some(&session.user))
+                .await?
+                .view,
+        ),
         None => None,
     };
     // The strip shows the version in force, the scheduled one, and the open proposal.
@@ -153,13 +157,8 @@ pub async fn detail(
     } else {
         crate::web::svg::zone_strip(&format!("{}: zones", metric.name), unit, &strip_rows)
     };
-    let can_propose = open.is_none()
-        && crate::engine::workflow::may_propose(crate::engine::workflow::Actor {
-            username: session.user.username.as_str(),
-            roles: &session.user.roles,
-            owns_metric: metric.is_owner(&session.user.username),
-        })
-        .is_ok();
+    let can_propose =
+        open.is_none() && crate::ops::proposals::may_propose(&session.user, &metric).is_ok();
     let mut ctx = base_context(Some(&session), &metric.name, "register");
     ctx.insert("can_edit", &may_edit(&session, &metric));
     ctx.insert("can_propose", &can_propose);
@@ -204,18 +203,6 @@ pub async fn detail(
         &(session.user.roles.has(Role::Admin) || metric.is_owner(&session.user.username)),
     );
     ctx.insert("uploaded", &uploaded);
-    ctx.insert(
-        "diffs",
-        &history
-            .iter()
-            .map(|v| {
-                (
-                    v.number.to_string(),
-                    crate::web::pages::proposals::diff_html(&v.diff_from_previous),
-                )
-            })
-            .collect::<std::collections::BTreeMap<_, _>>(),
-    );
     Ok(page("metric_detail.html", &ctx))
 }
 

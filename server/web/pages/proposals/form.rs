@@ -1,0 +1,357 @@
+//! The proposal form: proposing thresholds for a metric and revising a proposal, with the
+//! form's fields read back into the workflow's input and its problems shown beside them.
+
+use std::collections::BTreeMap;
+
+use axum::extract::{Path, State};
+use axum::http::StatusCode;
+use axum::response::{IntoResponse, Redirect, Response};
+use serde::Deserialize;
+use serde_json::{Value, json};
+
+use super::{parse_id, parse_key};
+use crate::domain::Metric;
+use crate::domain::Problems;
+use crate::domain::access::Session;
+use crate::domain::proposal::ContentInput;
+use crate::domain::thresholds::Direction;
+use crate::ops::OpError;
+use crate::ops::metrics;
+use crate::ops::proposals::{self as flow, RevisionInput};
+use crate::web::AppState;
+use crate::web::auth::PageSession;
+use crate::web::error::PageError;
+use crate::web::pages::{FormFields, PageQuery, base_context, field_errors, render};
+
+#[derive(Deserialize, Default)]
+#[serde(default)]
+pub struct FormQuery {
+    direction: String,
+}
+
+/// Values a form starts from: the revision being revised, or the latest version.
+struct Prefill<'a> {
+    cuts: &'a BTreeMap<&'static str, f64>,
+    shades: u8,
+    unit: &'a str,
+    effective_from: Option<crate::domain::Timestamp>,
+    rationale: &'a str,
+}
+
+impl<'a> From<&'a flow::RevisionView> for Prefill<'a> {
+    fn from(r: &'a flow::RevisionView) -> Self {
+        Prefill {
+            cuts: &r.cuts,
+            shades: r.shades,
+            unit: &r.unit,
+            effective_from: r.effective_from,
+            rationale: &r.rationale,
+        }
+    }
+}
+
+/// The text fields of the proposal form: what was typed, else the prefill, else defaults.
+fn form_values(
+    direction: Direction,
+    form: Option<&FormFields>,
+    from: Option<Prefill<'_>>,
+    unit: &str,
+) -> Value {
+    let typed = |name: &str| form.map(|f| f.get(name).to_string());
+    let mut cuts = BTreeMap::new();
+    for name in direction.cut_names() {
+        let stored = from
+            .as_ref()
+            .and_then(|p| p.cuts.get(name))
+            .map(|v| crate::domain::number::format(*v));
+        cuts.insert(name, typed(name).or(stored).unwrap_or_default());
+    }
+    let p = from.as_ref();
+    json!({
+        "cuts": cuts,
+        "shades": typed("shades").unwrap_or_else(|| p.map_or(3, |p| p.shades).to_string()),
+        "unit": typed("unit").unwrap_or_else(|| p.map_or(unit, |p| p.unit).to_string()),
+        "effective_from": typed("effective_from").unwrap_or_else(|| p.and_then(|p| p.effective_from).map(|t| t.to_string()).unwrap_or_default()),
+        "rationale": typed("rationale").unwrap_or_else(|| p.map_or("", |p| p.rationale).to_string()),
+        "note": typed("note").unwrap_or_default(),
+    })
+}
+
+struct FormPage<'a> {
+    metric: &'a Metric,
+    direction: Direction,
+    action: String,
+    /// Revising (with a note and the base hash) rather than proposing.
+    revising: Option<(&'a str, i64)>,
+}
+
+fn proposal_form(
+    session: &Session,
+    spec: &FormPage<'_>,
+    values: Value,
+    problems: &Problems,
+    status: StatusCode,
+) -> Response {
+    let title = if spec.revising.is_some() {
+        "Revise the proposal"
+    } else {
+        "Propose thresholds"
+    };
+    let mut ctx = base_context(Some(session), title, "register");
+    ctx.insert("metric", spec.metric);
+    ctx.insert("direction", spec.direction.as_str());
+    ctx.insert(
+        "directions",
+        &Direction::ALL
+            .iter()
+            .map(|d| d.as_str())
+            .collect::<Vec<_>>(),
+    );
+    ctx.insert("cut_names", &spec.direction.cut_names());
+    ctx.insert("action", &spec.action);
+    ctx.insert(
+        "revising",
+        &spec
+            .revising
+            .map(|(hash, id)| json!({"hash": hash, "id": id})),
+    );
+    ctx.insert("values", &values);
+    ctx.insert("errors", &field_errors(problems));
+    ctx.insert("problems", &problems.0);
+    render(status, "proposal_form.html", &ctx)
+}
+
+/// Builds the content from the form: cut fields are named after the direction's cut points.
+fn content_from_form(
+    direction: Direction,
+    form: &FormFields,
+    problems: &mut Problems,
+) -> ContentInput {
+    let mut cuts = BTreeMap::new();
+    for name in direction.cut_names() {
+        let text = form.get(name).trim();
+        if text.is_empty() {
+            problems.add(name, format!("give {name} a value"));
+            continue;
+        }
+        match crate::domain::thresholds::parse_finite(text) {
+            Ok(v) => {
+                cuts.insert(name.to_string(), v);
+            }
+            Err(_) => problems.add(
+                name,
+                format!("{name} must be a finite number, got {text:?}"),
+            ),
+        }
+    }
+    let shades = form.get("shades").trim();
+    let shades = match shades.parse::<i64>() {
+        Ok(n) => Some(n),
+        Err(_) if shades.is_empty() => None,
+        Err(_) => {
+            problems.add("shades", "shades must be a whole number from 2 to 5");
+            None
+        }
+    };
+    ContentInput {
+        direction: direction.as_str().to_string(),
+        cuts,
+        shades,
+        unit: Some(form.get("unit").to_string()),
+        effective_from: Some(form.get("effective_from").to_string()),
+        rationale: form.get("rationale").to_string(),
+    }
+}
+
+/// Problems of the cut set as a whole are shown beside the first cut field.
+fn place_problems(direction: Direction, p: Problems) -> Problems {
+    let first = direction.cut_names()[0];
+    Problems(
+        p.0.into_iter()
+            .map(|mut f| {
+                if f.field == "cuts" {
+                    f.field = first.to_string();
+                }
+                f
+            })
+            .collect(),
+    )
+}
+
+fn direction_param(text: &str, fallback: Direction) -> Direction {
+    text.parse().unwrap_or(fallback)
+}
+
+pub async fn new_form(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(key): Path<String>,
+    PageQuery(query): PageQuery<FormQuery>,
+) -> Result<Response, PageError> {
+    let key = parse_key(&key)?;
+    let metric = metrics::get(&state.store, key.as_str()).await?;
+    flow::may_propose(&session.user, &metric)?;
+    let history = crate::ops::versions::history(&state.store, &metric).await?;
+    let latest = history.last();
+    let direction = direction_param(
+        &query.direction,
+        latest
+            .and_then(|v| v.direction.parse().ok())
+            .unwrap_or(Direction::HigherIsBetter),
+    );
+    // Start from the latest version's numbers when the direction is the same; the rationale
+    // is the proposer's to write afresh.
+    let start = latest
+        .filter(|v| v.direction == direction.as_str())
+        .map(|v| Prefill {
+            cuts: &v.cuts,
+            shades: v.shades,
+            unit: &v.unit,
+            effective_from: None,
+            rationale: "",
+        });
+    let spec = FormPage {
+        metric: &metric,
+        direction,
+        action: format!("/metrics/{}/proposals/new", metric.key),
+        revising: None,
+    };
+    Ok(proposal_form(
+        &session,
+        &spec,
+        form_values(direction, None, start, &metric.unit),
+        &Problems::default(),
+        StatusCode::OK,
+    ))
+}
+
+/// Validation problems go back to the form; everything else is an error page.
+fn form_problems(e: OpError) -> Result<(Problems, StatusCode), PageError> {
+    match e {
+        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
+        OpError::Conflict(m) => {
+            let mut p = Problems::default();
+            p.add("form", m);
+            Ok((p, StatusCode::CONFLICT))
+        }
+        other => Err(other.into()),
+    }
+}
+
+pub async fn create(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(key): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    let key = parse_key(&key)?;
+    let metric = metrics::get(&state.store, key.as_str()).await?;
+    let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
+    let mut problems = Problems::default();
+    let input = content_from_form(direction, &form, &mut problems);
+    let spec = FormPage {
+        metric: &metric,
+        direction,
+        action: format!("/metrics/{}/proposals/new", metric.key),
+        revising: None,
+    };
+    let result = if problems.is_empty() {
+        flow::propose(&state.store, &session.user, key.as_str(), &input).await
+    } else {
+        Err(OpError::Invalid(problems))
+    };
+    match result {
+        Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done=proposed")).into_response()),
+        Err(e) => {
+            let (p, status) = form_problems(e)?;
+            Ok(proposal_form(
+                &session,
+                &spec,
+                form_values(direction, Some(&form), None, &metric.unit),
+                &place_problems(direction, p),
+                status,
+            ))
+        }
+    }
+}
+
+pub async fn edit_form(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+    PageQuery(query): PageQuery<FormQuery>,
+) -> Result<Response, PageError> {
+    let id = parse_id(&id)?;
+    let flow::ProposalRead { view, metric, .. } =
+        flow::for_revision(&state.store, id, &session.user).await?;
+    let latest = &view.latest_revision;
+    let direction = direction_param(
+        &query.direction,
+        latest
+            .direction
+            .parse()
+            .unwrap_or(Direction::HigherIsBetter),
+    );
+    let spec = FormPage {
+        metric: &metric,
+        direction,
+        action: format!("/proposals/{id}/edit"),
+        revising: Some((&latest.hash, id)),
+    };
+    Ok(proposal_form(
+        &session,
+        &spec,
+        form_values(direction, None, Some(latest.into()), &metric.unit),
+        &Problems::default(),
+        StatusCode::OK,
+    ))
+}
+
+pub async fn revise(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+    form: FormFields,
+) -> Result<Response, PageError> {
+    let id = parse_id(&id)?;
+    let metric = flow::get(&state.store, id, Some(&session.user))
+        .await?
+        .metric;
+    let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
+    let mut problems = Problems::default();
+    let content = content_from_form(direction, &form, &mut problems);
+    let input = RevisionInput {
+        direction: content.direction,
+        cuts: content.cuts,
+        shades: content.shades,
+        unit: content.unit,
+        effective_from: content.effective_from,
+        rationale: content.rationale,
+        note: form.get("note").to_string(),
+        base_revision_hash: Some(form.get("base_revision_hash").to_string()),
+    };
+    let result = if problems.is_empty() {
+        flow::revise(&state.store, &session.user, id, &input).await
+    } else {
+        Err(OpError::Invalid(problems))
+    };
+    match result {
+        Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
+        Err(e) => {
+            let (p, status) = form_problems(e)?;
+            let spec = FormPage {
+                metric: &metric,
+                direction,
+                action: format!("/proposals/{id}/edit"),
+                revising: Some((form.get("base_revision_hash"), id)),
+            };
+            Ok(proposal_form(
+                &session,
+                &spec,
+                form_values(direction, Some(&form), None, &metric.unit),
+                &place_problems(direction, p),
+                status,
+            ))
+        }
+    }
+}

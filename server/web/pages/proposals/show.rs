@@ -1,0 +1,217 @@
+//! A proposal's page and the signatory's sign-off page: the proposal with its zone strip,
+//! diffs, evidence and the forms for what the reader may do next.
+
+use axum::extract::{Path, State};
+use axum::http::StatusCode;
+use axum::response::Response;
+
+use super::{DoneQuery, done_message, parse_id};
+use crate::domain::Metric;
+use crate::domain::access::Session;
+use crate::domain::thresholds::{CutSet, Direction};
+use crate::ops::proposals::{self as flow, ProposalView};
+use crate::ops::versions::VersionRecord;
+use crate::web::AppState;
+use crate::web::auth::PageSession;
+use crate::web::error::PageError;
+use crate::web::pages::{PageQuery, base_context, render};
+use crate::web::svg::{StripRow, zone_strip};
+
+/// The zone strip of the version in force (if any) above the proposed cut set.
+pub fn strip_for(
+    title: &str,
+    unit: &str,
+    current: Option<&VersionRecord>,
+    proposed: Option<(&str, &CutSet)>,
+) -> String {
+    let in_force_caption = current.map(|v| format!("Version {}", v.number));
+    let mut rows = Vec::new();
+    if let (Some(v), Some(caption)) = (current, in_force_caption.as_deref()) {
+        rows.push(StripRow {
+            caption,
+            cuts: &v.content.cuts,
+        });
+    }
+    if let Some((caption, cuts)) = proposed {
+        rows.push(StripRow { caption, cuts });
+    }
+    if rows.is_empty() {
+        return String::new();
+    }
+    zone_strip(title, unit, &rows)
+}
+
+/// The evidence section for a proposal: its latest revision beside the version it would
+/// replace, over the whole history.
+async fn proposal_evidence(
+    state: &AppState,
+    metric: &Metric,
+    view: &ProposalView,
+    previous: Option<&VersionRecord>,
+    (from, to): (&str, &str),
+) -> Result<serde_json::Value, PageError> {
+    let (window, window_problem) = crate::web::pages::evidence::window(from, to);
+    let latest = &view.latest_revision;
+    let proposed = latest
+        .direction
+        .parse()
+        .ok()
+        .and_then(|d| CutSet::from_named(d, latest.cuts.iter().map(|(k, v)| (*k, *v))).ok());
+    let shades = crate::domain::thresholds::Shades::new(i64::from(latest.shades)).ok();
+    let history = crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
+    let now = state.store.now();
+    let in_force = previous.map(|v| crate::web::pages::evidence::Shown {
+        caption: format!("Version {}", v.number),
+        // The version compared with: the latest approved one, which is in force unless its
+        // effective time is still ahead; for an approved proposal, the one before its own.
+        short: if v.effective_from > now {
+            "scheduled"
+        } else if view.state == crate::domain::proposal::ProposalState::Approved {
+            "previous"
+        } else {
+            "in force"
+        },
+        cuts: v.content.cuts,
+        shades: v.content.shades,
+    });
+    let proposal = match (&proposed, shades) {
+        (Some(cuts), Some(shades)) => Some(crate::web::pages::evidence::Shown {
+            caption: format!("revision {} of proposal {}", latest.number, view.id),
+            short: "proposed",
+            cuts: *cuts,
+            shades,
+        }),
+        _ => None,
+    };
+    crate::web::pages::evidence::section_off_thread(crate::web::pages::evidence::SectionInput {
+        metric_name: metric.name.clone(),
+        unit: latest.unit.clone(),
+        history,
+        in_force,
+        proposal,
+        window,
+        window_problem,
+    })
+    .await
+}
+
+/// A proposal as `by` reads it, with its evidence section.
+pub(super) async fn load_with_evidence(
+    state: &AppState,
+    by: &crate::domain::User,
+    id: i64,
+    window: (&str, &str),
+) -> Result<(flow::ProposalRead, serde_json::Value), PageError> {
+    let read = flow::get(&state.store, id, Some(by)).await?;
+    let evidence = proposal_evidence(
+        state,
+        &read.metric,
+        &read.view,
+        read.previous.as_ref(),
+        window,
+    )
+    .await?;
+    Ok((read, evidence))
+}
+
+#[allow(clippy::too_many_arguments)]
+pub(super) fn proposal_page(
+    session: &Session,
+    metric: &Metric,
+    view: &ProposalView,
+    previous: Option<&VersionRecord>,
+    evidence: &serde_json::Value,
+    notice: Option<&str>,
+    error: Option<&str>,
+    status: StatusCode,
+) -> Response {
+    let latest = &view.latest_revision;
+    let proposed_cuts = CutSet::from_named(
+        latest
+            .direction
+            .parse()
+            .unwrap_or(Direction::HigherIsBetter),
+        latest.cuts.iter().map(|(k, v)| (*k, *v)),
+    )
+    .ok();
+    let caption = format!("Proposed: revision {}", latest.number);
+    let strip = strip_for(
+        &format!("{}: version in force and proposal", metric.name),
+        &latest.unit,
+        previous,
+        proposed_cuts.as_ref().map(|c| (caption.as_str(), c)),
+    );
+    let mut ctx = base_context(
+        Some(session),
+        &format!("Proposal {} for {}", view.id, metric.name),
+        "register",
+    );
+    ctx.insert("p", view);
+    ctx.insert("metric", metric);
+    ctx.insert("strip", &strip);
+    ctx.insert("evidence", evidence);
+    ctx.insert("notice", &notice);
+    ctx.insert("error", &error);
+    ctx.insert(
+        "cut_names",
+        &latest
+            .direction
+            .parse::<Direction>()
+            .map(|d| d.cut_names().to_vec())
+            .unwrap_or_default(),
+    );
+    ctx.insert(
+        "older_revisions",
+        &view.revisions.iter().rev().skip(1).collect::<Vec<_>>(),
+    );
+    render(status, "proposal.html", &ctx)
+}
+
+pub async fn show(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+    PageQuery(query): PageQuery<DoneQuery>,
+) -> Result<Response, PageError> {
+    let id = parse_id(&id)?;
+    let (read, evidence) =
+        load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
+    let flow::ProposalRead {
+        view,
+        previous,
+        metric,
+    } = read;
+    Ok(proposal_page(
+        &session,
+        &metric,
+        &view,
+        previous.as_ref(),
+        &evidence,
+        done_message(&query.done),
+        None,
+        StatusCode::OK,
+    ))
+}
+
+/// `GET /proposals/{id}/signoff`: what changes, the evidence and the signature form on one
+/// page for the signatory.
+pub async fn signoff_page(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+    Path(id): Path<String>,
+    PageQuery(query): PageQuery<DoneQuery>,
+) -> Result<Response, PageError> {
+    let id = parse_id(&id)?;
+    let (flow::ProposalRead { view, metric, .. }, evidence) =
+        load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
+    let mut ctx = base_context(
+        Some(&session),
+        &format!("Sign off proposal {} for {}", view.id, metric.name),
+        "register",
+    );
+    ctx.insert("p", &view);
+    ctx.insert("metric", &metric);
+    ctx.insert("evidence", &evidence);
+    ctx.insert("error", &None::<String>);
+    Ok(render(StatusCode::OK, "signoff.html", &ctx))
+}
