@@ -16,7 +16,6 @@
 pub mod audit;
 pub mod auth;
 pub mod cli;
-pub mod demo;
 pub mod domain;
 pub mod engine;
 pub mod ops;

@@ -195,7 +195,7 @@ async fn demo(args: DemoArgs) -> anyhow::Result<()> {
             "{url} already holds data; the demo only seeds an empty database (omit --database-url for a fresh one)"
         );
     }
-    crate::demo::seed(&store).await.map_err(explain)?;
+    super::demo::seed(&store).await.map_err(explain)?;
     let signer =
         crate::publish::signing::load_or_create(&store, &folder.join("signing.key")).await?;
     let listener = bind(&args.bind).await?;
@@ -208,7 +208,7 @@ async fn demo(args: DemoArgs) -> anyhow::Result<()> {
         "  {:<8} {:<20} {:<18} roles",
         "username", "password", "name"
     );
-    for p in crate::demo::PEOPLE {
+    for p in super::demo::PEOPLE {
         println!(
             "  {:<8} {:<20} {:<18} {}",
             p.username,

@@ -3,6 +3,7 @@
 
 mod classify;
 mod commands;
+pub mod demo;
 
 use std::process::ExitCode;
 
