@@ -132,6 +132,14 @@ pub(super) const METRICS: &[DemoMetric] = &[
 
 /// One thing someone does to a proposal once it is in review.
 pub(super) enum Step {
+    /// A reviewer asks about one cut point; a few days later the owner answers, on the same
+    /// cut point. Both are comments.
+    Question {
+        by: &'static str,
+        cut: &'static str,
+        question: &'static str,
+        answer: &'static str,
+    },
     /// A comment, optionally on one cut point.
     Comment {
         by: &'static str,
@@ -185,15 +193,11 @@ pub(super) const STORIES: &[Story] = &[
         rationale: "First agreed thresholds, set from the three pilot months of dock sensor data. At 80% a member at a typical station finds a bike four times in five; below 70% the complaints line fills up within a week. Outperform and stretch follow the best pilot month.",
         months_ahead: None,
         steps: &[
-            Step::Comment {
+            Step::Question {
                 by: "hana",
-                cut: Some("intervene"),
-                body: "What is the evidence for putting the act-now line at 80 rather than 75? Please attach the pilot figures behind it.",
-            },
-            Step::Comment {
-                by: "tomas",
-                cut: Some("intervene"),
-                body: "Pilot weeks below 80% brought 31 complaints on average, weeks above it 9. The weekly sheet is in the fleet folder.",
+                cut: "intervene",
+                question: "What is the evidence for putting the act-now line at 80 rather than 75? Please attach the pilot figures behind it.",
+                answer: "Pilot weeks below 80% brought 31 complaints on average, weeks above it 9. The weekly sheet is in the fleet folder.",
             },
             Step::Approve { by: "hana" },
             Step::SignOff { by: "odile" },
@@ -228,15 +232,11 @@ pub(super) const STORIES: &[Story] = &[
         rationale: "Below 2.5 rides a day a bike earns less than its upkeep; below 1.5 the fleet is too large for its members. Above 6 the workshop cannot keep up with wear, and above 8 bikes go back out with worn brakes.",
         months_ahead: None,
         steps: &[
-            Step::Comment {
+            Step::Question {
                 by: "hana",
-                cut: Some("critical_high"),
-                body: "Is 8 a workshop limit or a guess? It matters, because crossing it would stop other work.",
-            },
-            Step::Comment {
-                by: "tomas",
-                cut: Some("critical_high"),
-                body: "Workshop limit: at 8 rides a day brake pads last under three weeks, shorter than the inspection round.",
+                cut: "critical_high",
+                question: "Is 8 a workshop limit or a guess? It matters, because crossing it would stop other work.",
+                answer: "Workshop limit: at 8 rides a day brake pads last under three weeks, shorter than the inspection round.",
             },
             Step::Approve { by: "hana" },
             Step::SignOff { by: "odile" },
@@ -304,15 +304,11 @@ pub(super) const STORIES: &[Story] = &[
         rationale: "A second mechanic joined the workshop three months ago and the median turnaround has been 20 hours since. The act-now line tightens to 36 hours and outperform to 18; the critical line stays where the board set it.",
         months_ahead: None,
         steps: &[
-            Step::Comment {
+            Step::Question {
                 by: "hana",
-                cut: Some("intervene"),
-                body: "Does 36 hours still hold in the holiday weeks, when one of the two mechanics is on leave?",
-            },
-            Step::Comment {
-                by: "tomas",
-                cut: Some("intervene"),
-                body: "Last year, with one mechanic in the holiday weeks, the median was 34 hours. We book a temporary mechanic for the leave weeks.",
+                cut: "intervene",
+                question: "Does 36 hours still hold in the holiday weeks, when one of the two mechanics is on leave?",
+                answer: "Last year, with one mechanic in the holiday weeks, the median was 34 hours. We book a temporary mechanic for the leave weeks.",
             },
             Step::Approve { by: "hana" },
         ],

@@ -271,16 +271,23 @@ async fn tell(
         }
         timeline.later()?;
         recorded = match step {
+            Step::Question {
+                by,
+                cut,
+                question,
+                answer,
+            } => {
+                flow::comment(store, person(people, by), id, question, Some(cut)).await?;
+                timeline.later()?;
+                flow::comment(store, owner, id, answer, Some(cut)).await?;
+                None
+            }
             Step::Comment { by, cut, body } => {
                 flow::comment(store, person(people, by), id, body, *cut).await?;
                 None
             }
             Step::Approve { by } => {
-                let hash = latest_hash(store, id).await?;
-                let by = person(people, by);
-                flow::review(store, by, id, Verdict::Approve, &hash, "")
-                    .await?
-                    .version
+                review(store, person(people, by), id, Verdict::Approve, "").await?
             }
             Step::SignOff { by } => {
                 let hash = latest_hash(store, id).await?;
@@ -294,11 +301,7 @@ async fn tell(
                     .version
             }
             Step::SendBack { by, reason } => {
-                let hash = latest_hash(store, id).await?;
-                let by = person(people, by);
-                flow::review(store, by, id, Verdict::SendBack, &hash, reason)
-                    .await?
-                    .version
+                review(store, person(people, by), id, Verdict::SendBack, reason).await?
             }
             Step::Revise {
                 cuts,
@@ -330,6 +333,20 @@ async fn tell(
         )));
     }
     Ok(())
+}
+
+/// A review of the proposal's latest revision; returns the version it recorded, if any.
+async fn review(
+    store: &Store,
+    by: &User,
+    id: i64,
+    verdict: Verdict,
+    comment: &str,
+) -> OpResult<Option<i64>> {
+    let hash = latest_hash(store, id).await?;
+    Ok(flow::review(store, by, id, verdict, &hash, comment)
+        .await?
+        .version)
 }
 
 /// The hash of the proposal's latest revision, which verdicts and sign-offs bind to.
