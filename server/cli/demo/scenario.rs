@@ -148,7 +148,8 @@ pub(super) enum Step {
     },
     /// A reviewer's approval.
     Approve { by: &'static str },
-    /// The signatory's sign-off, with her demo password.
+    /// The signatory's sign-off, with her demo password: a story's last step when it names
+    /// a signatory (`Story::signed_off_by`).
     SignOff { by: &'static str },
     /// A reviewer returns it to the owner, the reason as the review comment.
     SendBack {
@@ -177,6 +178,8 @@ pub(super) struct Story {
     /// starts (a scheduled version); `None`: on approval.
     pub(super) months_ahead: Option<u32>,
     pub(super) steps: &'static [Step],
+    /// The signatory who signs off after the steps, for a change that needs a sign-off.
+    pub(super) signed_off_by: Option<&'static str>,
     /// The version the last step records, or `None` when the proposal is left open.
     pub(super) version: Option<i64>,
 }
@@ -200,8 +203,8 @@ pub(super) const STORIES: &[Story] = &[
                 answer: "Pilot weeks below 80% brought 31 complaints on average, weeks above it 9. The weekly sheet is in the fleet folder.",
             },
             Step::Approve { by: "hana" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(1),
     },
     Story {
@@ -219,8 +222,8 @@ pub(super) const STORIES: &[Story] = &[
                 body: "Fine by me as a start. Brake faults stay off the street whatever this says, as the description notes.",
             },
             Step::Approve { by: "emil" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(1),
     },
     Story {
@@ -239,8 +242,8 @@ pub(super) const STORIES: &[Story] = &[
                 answer: "Workshop limit: at 8 rides a day brake pads last under three weeks, shorter than the inspection round.",
             },
             Step::Approve { by: "hana" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(1),
     },
     Story {
@@ -251,7 +254,8 @@ pub(super) const STORIES: &[Story] = &[
         cuts: [6.0, 4.0, 2.5, 1.5],
         rationale: "Comparable city cooperatives we spoke to lose three to four per cent of members a month. Above 4% we call lapsed members; above 6% the board reviews prices and service.",
         months_ahead: None,
-        steps: &[Step::Approve { by: "hana" }, Step::SignOff { by: "odile" }],
+        steps: &[Step::Approve { by: "hana" }],
+        signed_off_by: Some("odile"),
         version: Some(1),
     },
     Story {
@@ -269,8 +273,8 @@ pub(super) const STORIES: &[Story] = &[
                 body: "The board agreed these lines at its last meeting; I will sign once a reviewer has approved.",
             },
             Step::Approve { by: "emil" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(1),
     },
     Story {
@@ -293,6 +297,7 @@ pub(super) const STORIES: &[Story] = &[
             },
             Step::Approve { by: "emil" },
         ],
+        signed_off_by: None,
         version: Some(2),
     },
     Story {
@@ -312,6 +317,7 @@ pub(super) const STORIES: &[Story] = &[
             },
             Step::Approve { by: "hana" },
         ],
+        signed_off_by: None,
         version: Some(2),
     },
     Story {
@@ -323,6 +329,7 @@ pub(super) const STORIES: &[Story] = &[
         rationale: "Since annual memberships were discounted, monthly churn has settled near 2.6%. The intervene and outperform lines tighten so a return to the old levels is noticed; the critical line is unchanged.",
         months_ahead: None,
         steps: &[Step::Approve { by: "emil" }],
+        signed_off_by: None,
         version: Some(2),
     },
     Story {
@@ -340,8 +347,8 @@ pub(super) const STORIES: &[Story] = &[
                 body: "Raising critical means the board drops other work sooner. Odile, this one needs your sign-off.",
             },
             Step::Approve { by: "hana" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(3),
     },
     Story {
@@ -356,6 +363,7 @@ pub(super) const STORIES: &[Story] = &[
             by: "hana",
             reason: "Four months are not enough: lapsed memberships are only counted at the annual renewal, so the months before it always look low. Please base the change on a full year of figures.",
         }],
+        signed_off_by: None,
         version: None,
     },
     Story {
@@ -373,8 +381,8 @@ pub(super) const STORIES: &[Story] = &[
                 body: "Effective from the start of the loan, not from approval: that is right, the old line applies until then.",
             },
             Step::Approve { by: "emil" },
-            Step::SignOff { by: "odile" },
         ],
+        signed_off_by: Some("odile"),
         version: Some(2),
     },
     Story {
@@ -390,6 +398,7 @@ pub(super) const STORIES: &[Story] = &[
             cut: Some("intervene_high"),
             body: "Before I approve: the workshop log for the busiest month shows brake pads on classic bikes wearing out at 6.5 rides a day. Can you add the wear figures for both bike types?",
         }],
+        signed_off_by: None,
         version: None,
     },
     Story {
@@ -401,6 +410,7 @@ pub(super) const STORIES: &[Story] = &[
         rationale: "Members now see repair times in the app, and the service charter promises a fixed bike within two and a half days. The critical line moves from 72 to 60 hours to match the promise.",
         months_ahead: None,
         steps: &[Step::Approve { by: "hana" }],
+        signed_off_by: None,
         version: None,
     },
 ];

@@ -262,7 +262,8 @@ async fn tell(
     timeline.later()?;
     flow::submit(store, owner, id).await?;
     let mut recorded = None;
-    for (i, step) in story.steps.iter().enumerate() {
+    let sign_off = story.signed_off_by.map(|by| Step::SignOff { by });
+    for (i, step) in story.steps.iter().chain(&sign_off).enumerate() {
         if recorded.is_some() {
             return Err(scenario_error(format!(
                 "{}: version {recorded:?} was recorded before step {i}",
