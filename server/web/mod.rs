@@ -5,11 +5,9 @@ pub mod api;
 pub mod auth;
 pub mod error;
 pub mod extract;
-pub mod history_chart;
 pub mod layout;
 pub mod pages;
 pub mod redirect;
-pub mod svg;
 pub mod templates;
 
 use std::future::Future;

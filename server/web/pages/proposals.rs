@@ -10,6 +10,7 @@ use serde::Deserialize;
 use serde_json::{Value, json};
 
 use super::{FormFields, PageQuery, base_context, field_errors, page, render};
+use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Metric;
 use crate::domain::Problems;
 use crate::domain::access::Session;
@@ -24,7 +25,6 @@ use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::svg::{StripRow, zone_strip};
 
 /// A unified diff as HTML: every line keeps its `+`/`-`, added lines are `<ins>` and removed
 /// lines `<del>`, each with words for screen readers, so they differ in more than colour.
@@ -34,7 +34,7 @@ pub fn diff_html(diff: &str) -> String {
     }
     let mut out = String::from("<pre class=\"diff\">");
     for line in diff.lines() {
-        let text = crate::web::svg::escape(line);
+        let text = crate::charts::svg::escape(line);
         let html = if line.starts_with("+++") || line.starts_with("---") {
             format!("<span class=\"file\">{text}</span>")
         } else if line.starts_with("@@") {
