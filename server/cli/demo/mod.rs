@@ -20,6 +20,7 @@ use crate::web::{AppState, WebConfig};
 pub use scenario::{DemoPerson, PEOPLE};
 pub use seed::seed;
 
+/// A fresh folder under the system's temporary one for the demo's database and signing key.
 fn demo_folder() -> anyhow::Result<PathBuf> {
     let name = crate::auth::secret::random_token("cutpoints-demo")
         .chars()
@@ -38,6 +39,8 @@ fn demo_folder() -> anyhow::Result<PathBuf> {
     Ok(dir)
 }
 
+/// Seeds the scenario into an empty database, prints a login for each person and serves the
+/// application until a shutdown signal.
 pub(super) async fn demo(args: DemoArgs) -> anyhow::Result<()> {
     let folder = demo_folder()?;
     let url = match &args.database_url {
