@@ -9,14 +9,15 @@
 //! ops      each action: permission, validation, store call (no HTTP)
 //! publish  the published set: bytes, digest, signature, cache
 //! store    all SQL for both backends; each change and its event in one transaction
+//! charts   SVG pictures of zones and histories (pure: no HTTP, no SQL)
 //! engine   classification, workflow rules (pure)   audit  hash chain (pure)   auth  passwords (pure)
 //! domain   validated types: metric key, direction, cut set, times, people
 //! ```
 
 pub mod audit;
 pub mod auth;
+pub mod charts;
 pub mod cli;
-pub mod demo;
 pub mod domain;
 pub mod engine;
 pub mod ops;

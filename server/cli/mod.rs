@@ -1,8 +1,16 @@
 //! The command line. Every flag also reads a `CUTPOINTS_*` environment variable; every
 //! subcommand that touches the database takes `--database-url`.
 
+mod audit;
 mod classify;
 mod commands;
+pub mod demo;
+mod observations;
+mod people;
+mod policy;
+mod publication;
+mod serve;
+mod terminal;
 
 use std::process::ExitCode;
 
@@ -39,6 +47,11 @@ impl DatabaseArgs {
         crate::ops::StoreSettings {
             timeout: self.db_timeout,
         }
+    }
+
+    /// Opens the database, applying the migrations it lacks.
+    pub async fn open(&self) -> anyhow::Result<crate::ops::Store> {
+        Ok(crate::ops::Store::open_with(&self.database_url, self.settings()).await?)
     }
 }
 

@@ -8,7 +8,7 @@ pub fn diff_html(diff: &str) -> String {
     }
     let mut out = String::from("<pre class=\"diff\">");
     for line in diff.lines() {
-        let text = crate::web::svg::escape(line);
+        let text = crate::charts::svg::escape(line);
         let html = if line.starts_with("+++") || line.starts_with("---") {
             format!("<span class=\"file\">{text}</span>")
         } else if line.starts_with("@@") {

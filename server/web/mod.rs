@@ -6,11 +6,9 @@ pub mod auth;
 pub mod diff_html;
 pub mod error;
 pub mod extract;
-pub mod history_chart;
 pub mod layout;
 pub mod pages;
 pub mod redirect;
-pub mod svg;
 pub mod templates;
 
 use std::future::Future;

@@ -57,7 +57,7 @@ fn close_to_real_time(t: Timestamp) -> bool {
 on_both_backends! {
     async fn the_demo_register_has_history_versions_in_force_and_open_proposals(app) {
         let (app, people) = TestApp::spawn_demo(app.backend).await.unwrap();
-        assert_eq!(people.len(), cutpoints::demo::PEOPLE.len());
+        assert_eq!(people.len(), cutpoints::cli::demo::PEOPLE.len());
         // The clock is back on real time for the running demo.
         assert!(close_to_real_time(app.store.now()), "{}", app.store.now());
         let token = app.token("samir", Scope::Read).await;
@@ -179,7 +179,7 @@ on_both_backends! {
             assert!(codes.contains(code), "the demo shows {code}: {codes:?}");
         }
         let browser = crate::helpers::Browser::new(&app);
-        let hana = cutpoints::demo::PEOPLE.iter().find(|p| p.username == "hana").unwrap();
+        let hana = cutpoints::cli::demo::PEOPLE.iter().find(|p| p.username == "hana").unwrap();
         assert_eq!(browser.sign_in("hana", &hana.password()).await.status(), 303);
         let id = open[0]["id"].as_i64().unwrap();
         let (status, html) = browser.get_text(&format!("/proposals/{id}")).await;
@@ -209,6 +209,6 @@ on_both_backends! {
 async fn a_failed_seeding_still_puts_the_clock_back_on_real_time() {
     let (app, _) = TestApp::spawn_demo(Backend::Sqlite).await.unwrap();
     // A second run fails at once (the people exist already), with the clock set to the past.
-    assert!(cutpoints::demo::seed(&app.store).await.is_err());
+    assert!(cutpoints::cli::demo::seed(&app.store).await.is_err());
     assert!(close_to_real_time(app.store.now()), "{}", app.store.now());
 }

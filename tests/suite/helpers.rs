@@ -182,7 +182,9 @@ impl TestApp {
             .await
             .expect("open and migrate");
         let people = if demo {
-            cutpoints::demo::seed(&store).await.expect("the demo seeds")
+            cutpoints::cli::demo::seed(&store)
+                .await
+                .expect("the demo seeds")
         } else {
             Vec::new()
         };

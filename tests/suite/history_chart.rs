@@ -3,10 +3,10 @@
 //! names in text, the zone strip's palette, escaping, no inline styles or scripts, a million
 //! points drawn small without losing their extremes, and the same bytes for the same input.
 
+use cutpoints::charts::history::{Bands, HistoryChart, LimitLines, history_chart};
 use cutpoints::domain::Timestamp;
 use cutpoints::domain::number::format;
 use cutpoints::domain::thresholds::{CutSet, Direction};
-use cutpoints::web::history_chart::{Bands, HistoryChart, LimitLines, history_chart};
 
 fn cuts(direction: Direction, values: [f64; 4]) -> CutSet {
     CutSet::new(direction, values).expect("valid cut set")

@@ -268,4 +268,9 @@ fn the_checks_see_imports_where_they_are() {
         "{:?}",
         g["web::pages::signin"]
     );
+    assert!(
+        g["charts::history::draw"].contains("charts::zones"),
+        "{:?}",
+        g["charts::history::draw"]
+    );
 }

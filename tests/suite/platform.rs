@@ -231,12 +231,12 @@ on_both_backends! {
 
     async fn the_demo_scenario_seeds_an_empty_database_once(app) {
         let (app, people) = TestApp::spawn_demo(app.backend).await.unwrap();
-        assert_eq!(people.len(), cutpoints::demo::PEOPLE.len());
+        assert_eq!(people.len(), cutpoints::cli::demo::PEOPLE.len());
         assert_eq!(cutpoints::store::metrics::count(&app.store).await.unwrap(), 5);
         for role in ["admin", "owner", "reviewer", "signatory", "auditor", "viewer"] {
             assert!(people.iter().any(|p| p.roles.to_list().contains(role)), "{role}");
         }
-        let first = &cutpoints::demo::PEOPLE[0];
+        let first = &cutpoints::cli::demo::PEOPLE[0];
         let r = crate::helpers::Browser::new(&app).sign_in(first.username, &first.password()).await;
         assert_eq!(r.status(), 303);
         // `cutpoints demo` refuses a database that already holds data.

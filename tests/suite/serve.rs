@@ -54,10 +54,10 @@ async fn the_demo_serves_the_signed_in_register_and_stops_on_sigterm() {
         .to_string();
     // The logins are printed: every role has one, with its password.
     let mut logins = String::new();
-    for _ in 0..cutpoints::demo::PEOPLE.len() + 1 {
+    for _ in 0..cutpoints::cli::demo::PEOPLE.len() + 1 {
         out.read_line(&mut logins).unwrap();
     }
-    for p in cutpoints::demo::PEOPLE {
+    for p in cutpoints::cli::demo::PEOPLE {
         assert!(
             logins.contains(p.username) && logins.contains(&p.password()),
             "{logins}"
@@ -74,7 +74,7 @@ async fn the_demo_serves_the_signed_in_register_and_stops_on_sigterm() {
     };
     let health = app_like.get("/healthz").await;
     assert_eq!(health.status(), 200);
-    let admin = &cutpoints::demo::PEOPLE[0];
+    let admin = &cutpoints::cli::demo::PEOPLE[0];
     assert_eq!(
         app_like
             .sign_in(admin.username, &admin.password())

@@ -3,10 +3,11 @@
 //! styles or scripts, and well-formed XML according to a reference parser (Python's
 //! `xml.etree.ElementTree`).
 
+use cutpoints::charts::scale::nice_axis;
+use cutpoints::charts::zone_strip::{StripRow, zone_strip, zone_strip_with_id};
 use cutpoints::domain::number::format;
 use cutpoints::domain::thresholds::{CutSet, Direction, Shades};
 use cutpoints::engine::classify;
-use cutpoints::web::svg::{StripRow, nice_axis, zone_strip, zone_strip_with_id};
 use proptest::prelude::*;
 
 fn cuts(direction: Direction, values: [f64; 4]) -> CutSet {

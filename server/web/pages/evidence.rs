@@ -7,6 +7,7 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde_json::{Value, json};
 
+use crate::charts::history::{Bands, HistoryChart, LimitLines, history_chart};
 use crate::domain::observations::Mode;
 use crate::domain::thresholds::{CutSet, Shades};
 use crate::domain::{MetricKey, number};
@@ -17,7 +18,6 @@ use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
 use crate::web::auth::{CSRF_FIELD, PageSession};
 use crate::web::error::{ApiError, PageError};
-use crate::web::history_chart::{Bands, HistoryChart, LimitLines, history_chart};
 
 /// A cut set the section shows, with the words for it.
 pub struct Shown {

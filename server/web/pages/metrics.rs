@@ -149,13 +149,13 @@ pub async fn detail(
     }
     let strip_rows: Vec<_> = rows
         .iter()
-        .map(|(caption, cuts)| crate::web::svg::StripRow { caption, cuts })
+        .map(|(caption, cuts)| crate::charts::zone_strip::StripRow { caption, cuts })
         .collect();
     let unit = in_force.map_or(metric.unit.as_str(), |v| v.unit.as_str());
     let strip = if strip_rows.is_empty() {
         String::new()
     } else {
-        crate::web::svg::zone_strip(&format!("{}: zones", metric.name), unit, &strip_rows)
+        crate::charts::zone_strip::zone_strip(&format!("{}: zones", metric.name), unit, &strip_rows)
     };
     let can_propose =
         open.is_none() && crate::ops::proposals::may_propose(&session.user, &metric).is_ok();

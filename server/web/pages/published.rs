@@ -11,12 +11,12 @@ use serde::Deserialize;
 use serde_json::{Value, json};
 
 use super::{PageQuery, base_context, page};
+use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Timestamp;
 use crate::domain::thresholds::{CutSet, Direction};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::svg::{StripRow, zone_strip};
 
 #[derive(Deserialize, Default)]
 #[serde(default)]

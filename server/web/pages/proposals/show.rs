@@ -6,6 +6,7 @@ use axum::http::StatusCode;
 use axum::response::Response;
 
 use super::{DoneQuery, done_message, parse_id};
+use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Metric;
 use crate::domain::access::Session;
 use crate::domain::thresholds::{CutSet, Direction};
@@ -15,7 +16,6 @@ use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::PageError;
 use crate::web::pages::{PageQuery, base_context, render};
-use crate::web::svg::{StripRow, zone_strip};
 
 /// The zone strip of the version in force (if any) above the proposed cut set.
 pub fn strip_for(
