@@ -16,6 +16,7 @@ pub mod metrics;
 pub mod observations;
 pub mod policy;
 pub mod proposals;
+mod rows;
 pub mod sessions;
 pub mod throttle;
 pub mod tokens;

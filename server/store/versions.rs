@@ -7,10 +7,10 @@ use sqlx::Row;
 
 use super::Db;
 
-use super::{StoreError, StoreResult, WriteTx};
+use super::rows::cuts_from_row;
+use super::{StoreResult, WriteTx};
 use crate::domain::Timestamp;
 use crate::domain::proposal::ThresholdContent;
-use crate::domain::thresholds::{CutSet, Direction, Shades};
 
 /// A version's place in time, seen from one instant.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
@@ -63,28 +63,6 @@ impl VersionRecord {
     pub fn is_retroactive(&self) -> bool {
         self.effective_from < self.approved_at
     }
-}
-
-/// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
-pub(super) fn cuts_from_row(row: &sqlx::any::AnyRow) -> StoreResult<(CutSet, Shades)> {
-    let direction: String = row.try_get("direction")?;
-    let direction: Direction = direction
-        .parse()
-        .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
-    let cuts = CutSet::new(
-        direction,
-        [
-            row.try_get("cut_1")?,
-            row.try_get("cut_2")?,
-            row.try_get("cut_3")?,
-            row.try_get("cut_4")?,
-        ],
-    )
-    .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
-    let shades: i64 = row.try_get("shades")?;
-    let shades =
-        Shades::new(shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
-    Ok((cuts, shades))
 }
 
 fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {

@@ -1,0 +1,76 @@
+//! Reading domain values that several tables share out of result rows: a person joined from
+//! `users`, and a cut set with its shades.
+
+use sqlx::Row;
+use sqlx::any::AnyRow;
+
+use super::{StoreError, StoreResult};
+use crate::domain::thresholds::{CutSet, Direction, Shades};
+use crate::domain::{Person, Roles};
+
+/// A person from the columns of a joined `users` row named `{prefix}_id`, `{prefix}_username`
+/// and so on (see [`person_columns`]).
+pub(super) fn person(row: &AnyRow, prefix: &str) -> StoreResult<Person> {
+    let col = |name: &str| format!("{prefix}_{name}");
+    let roles: String = row.try_get(col("roles").as_str())?;
+    let active: i64 = row.try_get(col("active").as_str())?;
+    Ok(Person {
+        id: row.try_get(col("id").as_str())?,
+        username: row.try_get(col("username").as_str())?,
+        display_name: row.try_get(col("display_name").as_str())?,
+        active: active != 0,
+        roles: Roles::parse_list(&roles).unwrap_or_default(),
+    })
+}
+
+/// The columns of a `users` row joined as `$alias`, named `$p_id`, `$p_username` and so on, as
+/// [`person`] reads them.
+macro_rules! person_columns {
+    ($alias:literal, $p:literal) => {
+        concat!(
+            $alias,
+            ".id AS ",
+            $p,
+            "_id, ",
+            $alias,
+            ".username AS ",
+            $p,
+            "_username, ",
+            $alias,
+            ".display_name AS ",
+            $p,
+            "_display_name, ",
+            $alias,
+            ".active AS ",
+            $p,
+            "_active, ",
+            $alias,
+            ".roles AS ",
+            $p,
+            "_roles"
+        )
+    };
+}
+pub(super) use person_columns;
+
+/// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
+pub(super) fn cuts_from_row(row: &AnyRow) -> StoreResult<(CutSet, Shades)> {
+    let direction: String = row.try_get("direction")?;
+    let direction: Direction = direction
+        .parse()
+        .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
+    let cuts = CutSet::new(
+        direction,
+        [
+            row.try_get("cut_1")?,
+            row.try_get("cut_2")?,
+            row.try_get("cut_3")?,
+            row.try_get("cut_4")?,
+        ],
+    )
+    .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
+    let shades: i64 = row.try_get("shades")?;
+    let shades =
+        Shades::new(shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
+    Ok((cuts, shades))
+}
