@@ -1,12 +1,27 @@
-//! Reading domain values that several tables share out of result rows: a person joined from
-//! `users`, and a cut set with its shades.
+//! Reading domain values that several tables share out of result rows: a user, a person joined
+//! from `users`, and a cut set with its shades.
 
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
 use super::{StoreError, StoreResult};
 use crate::domain::thresholds::{CutSet, Direction, Shades};
-use crate::domain::{Person, Roles};
+use crate::domain::{Person, Roles, User};
+
+/// A user from a row of `users` columns under their own names: `id`, `username`,
+/// `display_name`, `roles`, `active` and `created_at`.
+pub(super) fn user(row: &AnyRow) -> StoreResult<User> {
+    let roles: String = row.try_get("roles")?;
+    let active: i64 = row.try_get("active")?;
+    Ok(User {
+        id: row.try_get("id")?,
+        username: row.try_get("username")?,
+        display_name: row.try_get("display_name")?,
+        roles: Roles::parse_list(&roles).unwrap_or_default(),
+        active: active != 0,
+        created_at: row.try_get("created_at")?,
+    })
+}
 
 /// A person from the columns of a joined `users` row named `{prefix}_id`, `{prefix}_username`
 /// and so on (see [`person_columns`]).
