@@ -19,36 +19,39 @@ impl Store {
     /// A connection for reading. On SQLite it refuses to write, so a read can never wait
     /// for, or hold, the write lock.
     pub async fn read(&self) -> StoreResult<Db> {
-        let conn = self.acquire(&self.reader).await?;
-        Ok(Db::pooled(
-            conn,
-            self.statement_limit(),
-            self.health.clone(),
-        ))
+        self.pooled(&self.reader).await
     }
 
     /// A read-only transaction that sees one snapshot of the database throughout, for checks
     /// that read several tables and must not see writes made meanwhile.
     pub async fn begin_snapshot(&self) -> StoreResult<Db> {
-        let conn = self.acquire(&self.reader).await?;
         let begin = match self.backend {
             // Deferred: the snapshot is taken at the first read and kept to the end (WAL).
             Backend::Sqlite => "BEGIN",
             Backend::Postgres => "BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY",
         };
-        Ok(Db::begin(
-            conn,
-            Some(begin),
-            self.statement_limit(),
-            self.health.clone(),
-        )
-        .await?)
+        self.begin_on(&self.reader, Some(begin)).await
     }
 
     /// A connection for a write that the event record does not cover (sessions, sign-in
     /// counters, staging rows): each statement commits on its own.
     pub async fn unrecorded_write(&self) -> StoreResult<Db> {
-        let conn = self.acquire(&self.writer).await?;
+        self.pooled(&self.writer).await
+    }
+
+    /// A short transaction for writes that the event record does not cover, holding the
+    /// write lock (on SQLite) for its length only.
+    pub async fn begin_unrecorded(&self) -> StoreResult<Db> {
+        let begin = match self.backend {
+            Backend::Sqlite => Some("BEGIN IMMEDIATE"),
+            Backend::Postgres => None,
+        };
+        self.begin_on(&self.writer, begin).await
+    }
+
+    /// A connection of `pool` whose statements each commit on their own.
+    async fn pooled(&self, pool: &AnyPool) -> StoreResult<Db> {
+        let conn = self.acquire(pool).await?;
         Ok(Db::pooled(
             conn,
             self.statement_limit(),
@@ -56,15 +59,11 @@ impl Store {
         ))
     }
 
-    /// A short transaction for writes that the event record does not cover, holding the
-    /// write lock (on SQLite) for its length only.
-    pub async fn begin_unrecorded(&self) -> StoreResult<Db> {
-        let conn = self.acquire(&self.writer).await?;
-        let begin = match self.backend {
-            Backend::Sqlite => Some("BEGIN IMMEDIATE"),
-            Backend::Postgres => None,
-        };
-        Ok(Db::begin(conn, begin, self.statement_limit(), self.health.clone()).await?)
+    /// A transaction on a connection of `pool`, begun with `statement` (`None`: the driver's
+    /// plain `BEGIN`).
+    async fn begin_on(&self, pool: &AnyPool, statement: Option<&'static str>) -> StoreResult<Db> {
+        let conn = self.acquire(pool).await?;
+        Ok(Db::begin(conn, statement, self.statement_limit(), self.health.clone()).await?)
     }
 
     /// How long a statement may go without an answer before the store gives up on it: on
