@@ -18,6 +18,7 @@ pub mod policy;
 pub mod proposals;
 mod rows;
 pub mod sessions;
+mod sql;
 pub mod throttle;
 pub mod tokens;
 pub mod usage;

@@ -1,12 +1,34 @@
-//! Reading domain values that several tables share out of result rows: a user, a person joined
-//! from `users`, and a cut set with its shades.
+//! Reading result rows into records: running a query into records with a reader of one row,
+//! and the readers of values several tables share (a user, a person joined from `users`, and a
+//! cut set with its shades, which is also bound here as it is written).
 
-use sqlx::Row;
-use sqlx::any::AnyRow;
+use sqlx::any::{AnyArguments, AnyRow};
+use sqlx::query::Query;
+use sqlx::{Any, Row};
 
-use super::{StoreError, StoreResult};
+use super::{Db, StoreError, StoreResult};
 use crate::domain::thresholds::{CutSet, Direction, Shades};
 use crate::domain::{Person, Roles, User};
+
+/// The record of the row `query` finds, if any, read by `read`.
+pub(super) async fn optional<T>(
+    conn: &mut Db,
+    query: Query<'_, Any, AnyArguments>,
+    read: impl Fn(&AnyRow) -> StoreResult<T>,
+) -> StoreResult<Option<T>> {
+    let row = query.fetch_optional(&mut *conn).await?;
+    row.as_ref().map(read).transpose()
+}
+
+/// The records of every row `query` finds, in order, each read by `read`.
+pub(super) async fn all<T>(
+    conn: &mut Db,
+    query: Query<'_, Any, AnyArguments>,
+    read: impl Fn(&AnyRow) -> StoreResult<T>,
+) -> StoreResult<Vec<T>> {
+    let rows = query.fetch_all(&mut *conn).await?;
+    rows.iter().map(read).collect()
+}
 
 /// A user from a row of `users` columns under their own names: `id`, `username`,
 /// `display_name`, `roles`, `active` and `created_at`.
@@ -67,6 +89,23 @@ macro_rules! person_columns {
     };
 }
 pub(super) use person_columns;
+
+/// Binds a cut set and its shades to the next parameters of `query`, as the columns
+/// [`cuts_from_row`] reads: `direction`, `cut_1` to `cut_4`, then `shades`.
+pub(super) fn bind_cuts<'q>(
+    query: Query<'q, Any, AnyArguments>,
+    cuts: &CutSet,
+    shades: Shades,
+) -> Query<'q, Any, AnyArguments> {
+    let [c1, c2, c3, c4] = cuts.values();
+    query
+        .bind(cuts.direction().as_str())
+        .bind(c1)
+        .bind(c2)
+        .bind(c3)
+        .bind(c4)
+        .bind(i64::from(shades.get()))
+}
 
 /// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
 pub(super) fn cuts_from_row(row: &AnyRow) -> StoreResult<(CutSet, Shades)> {

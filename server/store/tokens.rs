@@ -91,14 +91,9 @@ pub async fn issue(
 
 /// Revokes a token; revoking twice is a conflict.
 pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<TokenInfo> {
-    let row = sqlx::query(select_tokens!("WHERE t.id = $1"))
-        .bind(id)
-        .fetch_optional(w.conn())
-        .await?;
-    let mut info = row
-        .as_ref()
-        .map(info_from_row)
-        .transpose()?
+    let query = sqlx::query(select_tokens!("WHERE t.id = $1")).bind(id);
+    let mut info = rows::optional(w.conn(), query, info_from_row)
+        .await?
         .ok_or_else(|| StoreError::NotFound(format!("no token with id {id}")))?;
     if info.revoked_at.is_some() {
         return Err(StoreError::Conflict(format!(
@@ -124,13 +119,11 @@ pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<Toke
 
 /// Every token, newest first, optionally of one person.
 pub async fn list(store: &Store, username: Option<&str>) -> StoreResult<Vec<TokenInfo>> {
-    let rows = sqlx::query(select_tokens!(
+    let query = sqlx::query(select_tokens!(
         "WHERE ($1 = '' OR u.username = $1) ORDER BY t.id DESC"
     ))
-    .bind(username.unwrap_or(""))
-    .fetch_all(&mut store.read().await?)
-    .await?;
-    rows.iter().map(info_from_row).collect()
+    .bind(username.unwrap_or(""));
+    rows::all(&mut store.read().await?, query, info_from_row).await
 }
 
 /// The person and scope behind a presented token, if it is usable: not revoked, not expired,

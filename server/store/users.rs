@@ -75,11 +75,8 @@ pub fn subject(username: &str) -> String {
 }
 
 pub async fn find(store: &Store, username: &str) -> StoreResult<Option<User>> {
-    let row = sqlx::query(select_users!("WHERE username = $1"))
-        .bind(username)
-        .fetch_optional(&mut store.read().await?)
-        .await?;
-    row.as_ref().map(rows::user).transpose()
+    let query = sqlx::query(select_users!("WHERE username = $1")).bind(username);
+    rows::optional(&mut store.read().await?, query, rows::user).await
 }
 
 pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
@@ -89,11 +86,8 @@ pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
 }
 
 pub async fn by_id(store: &Store, id: i64) -> StoreResult<Option<User>> {
-    let row = sqlx::query(select_users!("WHERE id = $1"))
-        .bind(id)
-        .fetch_optional(&mut store.read().await?)
-        .await?;
-    row.as_ref().map(rows::user).transpose()
+    let query = sqlx::query(select_users!("WHERE id = $1")).bind(id);
+    rows::optional(&mut store.read().await?, query, rows::user).await
 }
 
 /// The user and stored password hash for a sign-in attempt.
@@ -109,20 +103,14 @@ pub async fn credentials(store: &Store, username: &str) -> StoreResult<Option<(U
 }
 
 pub async fn list(store: &Store) -> StoreResult<Vec<User>> {
-    let rows = sqlx::query(select_users!("ORDER BY username"))
-        .fetch_all(&mut store.read().await?)
-        .await?;
-    rows.iter().map(rows::user).collect()
+    let query = sqlx::query(select_users!("ORDER BY username"));
+    rows::all(&mut store.read().await?, query, rows::user).await
 }
 
 async fn locked_user(w: &mut WriteTx, username: &str) -> StoreResult<User> {
-    let row = sqlx::query(select_users!("WHERE username = $1"))
-        .bind(username)
-        .fetch_optional(w.conn())
-        .await?;
-    row.as_ref()
-        .map(rows::user)
-        .transpose()?
+    let query = sqlx::query(select_users!("WHERE username = $1")).bind(username);
+    rows::optional(w.conn(), query, rows::user)
+        .await?
         .ok_or_else(|| not_found(username))
 }
 

@@ -7,7 +7,7 @@ use sqlx::any::AnyRow;
 use super::{ProposalRecord, find};
 use crate::domain::proposal::{ThresholdContent, Verdict};
 use crate::domain::{Person, Timestamp, Username};
-use crate::store::rows::{cuts_from_row, person, person_columns};
+use crate::store::rows::{self, cuts_from_row, person, person_columns};
 use crate::store::{Db, StoreError, StoreResult};
 
 #[derive(Clone, Debug)]
@@ -104,6 +104,43 @@ fn revision_from_row(row: &AnyRow) -> StoreResult<RevisionRecord> {
     })
 }
 
+fn review_from_row(row: &AnyRow) -> StoreResult<ReviewRecord> {
+    let verdict: String = row.try_get("verdict")?;
+    Ok(ReviewRecord {
+        id: row.try_get("id")?,
+        revision_number: row.try_get("revision_number")?,
+        revision_hash: row.try_get("revision_hash")?,
+        reviewer: person(row, "a")?,
+        verdict: Verdict::parse(&verdict)
+            .ok_or_else(|| StoreError::Config(format!("stored verdict {verdict:?}")))?,
+        comment: row.try_get("comment")?,
+        created_at: row.try_get("created_at")?,
+    })
+}
+
+fn signoff_from_row(row: &AnyRow) -> StoreResult<SignoffRecord> {
+    Ok(SignoffRecord {
+        id: row.try_get("id")?,
+        revision_number: row.try_get("revision_number")?,
+        revision_hash: row.try_get("revision_hash")?,
+        signer: person(row, "a")?,
+        signer_name: row.try_get("signer_name")?,
+        meaning: row.try_get("meaning")?,
+        created_at: row.try_get("created_at")?,
+    })
+}
+
+fn comment_from_row(row: &AnyRow) -> StoreResult<CommentRecord> {
+    Ok(CommentRecord {
+        id: row.try_get("id")?,
+        revision_number: row.try_get("revision_number")?,
+        author: person(row, "a")?,
+        cut: row.try_get("cut")?,
+        body: row.try_get("body")?,
+        created_at: row.try_get("created_at")?,
+    })
+}
+
 /// The proposal and all its records, or `None` when there is no such proposal.
 pub async fn bundle(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalBundle>> {
     let Some(proposal) = find(conn, id).await? else {
@@ -115,82 +152,27 @@ pub async fn bundle(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalBundle
         "r.base_version, r.diff_from_base, r.note, r.created_at, ",
         person_columns!("a", "a"),
         " FROM revisions r JOIN users a ON a.id = r.author_id WHERE r.proposal_id = $1 ORDER BY r.number"
-    ))
-    .bind(id)
-    .fetch_all(&mut *conn)
-    .await?
-    .iter()
-    .map(revision_from_row)
-    .collect::<StoreResult<Vec<_>>>()?;
+    ));
     let reviews = sqlx::query(concat!(
         "SELECT v.id, v.revision_number, v.revision_hash, v.verdict, v.comment, v.created_at, ",
         person_columns!("a", "a"),
         " FROM reviews v JOIN users a ON a.id = v.reviewer_id WHERE v.proposal_id = $1 ORDER BY v.id"
-    ))
-    .bind(id)
-    .fetch_all(&mut *conn)
-    .await?
-    .iter()
-    .map(|row| {
-        let verdict: String = row.try_get("verdict")?;
-        Ok(ReviewRecord {
-            id: row.try_get("id")?,
-            revision_number: row.try_get("revision_number")?,
-            revision_hash: row.try_get("revision_hash")?,
-            reviewer: person(row, "a")?,
-            verdict: Verdict::parse(&verdict)
-                .ok_or_else(|| StoreError::Config(format!("stored verdict {verdict:?}")))?,
-            comment: row.try_get("comment")?,
-            created_at: row.try_get("created_at")?,
-        })
-    })
-    .collect::<StoreResult<Vec<_>>>()?;
+    ));
     let signoffs = sqlx::query(concat!(
         "SELECT s.id, s.revision_number, s.revision_hash, s.signer_name, s.meaning, s.created_at, ",
         person_columns!("a", "a"),
         " FROM signoffs s JOIN users a ON a.id = s.signer_id WHERE s.proposal_id = $1 ORDER BY s.id"
-    ))
-    .bind(id)
-    .fetch_all(&mut *conn)
-    .await?
-    .iter()
-    .map(|row| {
-        Ok(SignoffRecord {
-            id: row.try_get("id")?,
-            revision_number: row.try_get("revision_number")?,
-            revision_hash: row.try_get("revision_hash")?,
-            signer: person(row, "a")?,
-            signer_name: row.try_get("signer_name")?,
-            meaning: row.try_get("meaning")?,
-            created_at: row.try_get("created_at")?,
-        })
-    })
-    .collect::<StoreResult<Vec<_>>>()?;
+    ));
     let comments = sqlx::query(concat!(
         "SELECT c.id, c.revision_number, c.cut, c.body, c.created_at, ",
         person_columns!("a", "a"),
         " FROM comments c JOIN users a ON a.id = c.author_id WHERE c.proposal_id = $1 ORDER BY c.id"
-    ))
-    .bind(id)
-    .fetch_all(&mut *conn)
-    .await?
-    .iter()
-    .map(|row| {
-        Ok(CommentRecord {
-            id: row.try_get("id")?,
-            revision_number: row.try_get("revision_number")?,
-            author: person(row, "a")?,
-            cut: row.try_get("cut")?,
-            body: row.try_get("body")?,
-            created_at: row.try_get("created_at")?,
-        })
-    })
-    .collect::<StoreResult<Vec<_>>>()?;
+    ));
     Ok(Some(ProposalBundle {
         proposal,
-        revisions,
-        reviews,
-        signoffs,
-        comments,
+        revisions: rows::all(conn, revisions.bind(id), revision_from_row).await?,
+        reviews: rows::all(conn, reviews.bind(id), review_from_row).await?,
+        signoffs: rows::all(conn, signoffs.bind(id), signoff_from_row).await?,
+        comments: rows::all(conn, comments.bind(id), comment_from_row).await?,
     }))
 }

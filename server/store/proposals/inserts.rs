@@ -1,9 +1,25 @@
 //! What is said about a proposal, only ever inserted: revisions, reviews, sign-offs and
 //! comments. Each insert also marks the proposal as touched.
 
+use sqlx::Any;
+use sqlx::any::AnyArguments;
+use sqlx::query::QueryScalar;
+
 use super::touch;
 use crate::domain::proposal::{ThresholdContent, Verdict};
-use crate::store::{StoreResult, WriteTx};
+use crate::store::{StoreResult, WriteTx, rows};
+
+/// Runs `insert`, an INSERT ... RETURNING id of a row said about proposal `proposal_id`, marks
+/// the proposal touched, and returns the new row's id.
+async fn insert_touching(
+    w: &mut WriteTx,
+    proposal_id: i64,
+    insert: QueryScalar<'_, Any, i64, AnyArguments>,
+) -> StoreResult<i64> {
+    let id = insert.fetch_one(w.conn()).await?;
+    touch(w, proposal_id).await?;
+    Ok(id)
+}
 
 /// A revision as it is written.
 pub struct NewRevision<'a> {
@@ -20,35 +36,29 @@ pub struct NewRevision<'a> {
 }
 
 pub async fn insert_revision(w: &mut WriteTx, r: &NewRevision<'_>) -> StoreResult<()> {
-    let [c1, c2, c3, c4] = r.content.cuts.values();
     let now = w.now();
-    sqlx::query(
+    let query = sqlx::query(
         "INSERT INTO revisions (proposal_id, number, direction, cut_1, cut_2, cut_3, cut_4, shades, \
          unit, effective_from, rationale, canonical_text, content_hash, diff_from_previous, \
          base_version, diff_from_base, note, author_id, created_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19)",
     )
     .bind(r.proposal_id)
-    .bind(r.number)
-    .bind(r.content.direction().as_str())
-    .bind(c1)
-    .bind(c2)
-    .bind(c3)
-    .bind(c4)
-    .bind(i64::from(r.content.shades.get()))
-    .bind(&r.content.unit)
-    .bind(r.content.effective_from)
-    .bind(&r.content.rationale)
-    .bind(r.canonical_text)
-    .bind(r.content_hash)
-    .bind(r.diff_from_previous)
-    .bind(r.base_version)
-    .bind(r.diff_from_base)
-    .bind(r.note)
-    .bind(r.author_id)
-    .bind(now)
-    .execute(w.conn())
-    .await?;
+    .bind(r.number);
+    rows::bind_cuts(query, &r.content.cuts, r.content.shades)
+        .bind(&r.content.unit)
+        .bind(r.content.effective_from)
+        .bind(&r.content.rationale)
+        .bind(r.canonical_text)
+        .bind(r.content_hash)
+        .bind(r.diff_from_previous)
+        .bind(r.base_version)
+        .bind(r.diff_from_base)
+        .bind(r.note)
+        .bind(r.author_id)
+        .bind(now)
+        .execute(w.conn())
+        .await?;
     touch(w, r.proposal_id).await
 }
 
@@ -62,7 +72,7 @@ pub async fn insert_review(
     comment: &str,
 ) -> StoreResult<i64> {
     let now = w.now();
-    let id = sqlx::query_scalar(
+    let insert = sqlx::query_scalar(
         "INSERT INTO reviews (proposal_id, revision_number, revision_hash, reviewer_id, verdict, comment, created_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id",
     )
@@ -72,11 +82,8 @@ pub async fn insert_review(
     .bind(reviewer_id)
     .bind(verdict.as_str())
     .bind(comment)
-    .bind(now)
-    .fetch_one(w.conn())
-    .await?;
-    touch(w, proposal_id).await?;
-    Ok(id)
+    .bind(now);
+    insert_touching(w, proposal_id, insert).await
 }
 
 pub async fn insert_signoff(
@@ -89,7 +96,7 @@ pub async fn insert_signoff(
     meaning: &str,
 ) -> StoreResult<i64> {
     let now = w.now();
-    let id = sqlx::query_scalar(
+    let insert = sqlx::query_scalar(
         "INSERT INTO signoffs (proposal_id, revision_number, revision_hash, signer_id, signer_name, meaning, created_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id",
     )
@@ -99,11 +106,8 @@ pub async fn insert_signoff(
     .bind(signer_id)
     .bind(signer_name)
     .bind(meaning)
-    .bind(now)
-    .fetch_one(w.conn())
-    .await?;
-    touch(w, proposal_id).await?;
-    Ok(id)
+    .bind(now);
+    insert_touching(w, proposal_id, insert).await
 }
 
 pub async fn insert_comment(
@@ -115,7 +119,7 @@ pub async fn insert_comment(
     body: &str,
 ) -> StoreResult<i64> {
     let now = w.now();
-    let id = sqlx::query_scalar(
+    let insert = sqlx::query_scalar(
         "INSERT INTO comments (proposal_id, revision_number, author_id, cut, body, created_at) \
          VALUES ($1, $2, $3, $4, $5, $6) RETURNING id",
     )
@@ -124,9 +128,6 @@ pub async fn insert_comment(
     .bind(author_id)
     .bind(cut)
     .bind(body)
-    .bind(now)
-    .fetch_one(w.conn())
-    .await?;
-    touch(w, proposal_id).await?;
-    Ok(id)
+    .bind(now);
+    insert_touching(w, proposal_id, insert).await
 }

@@ -18,8 +18,8 @@ use sqlx::any::AnyRow;
 
 use crate::domain::proposal::ProposalState;
 use crate::domain::{Person, Timestamp};
-use crate::store::rows::{person, person_columns};
-use crate::store::{Db, StoreError, StoreResult, WriteTx};
+use crate::store::rows::{self, person, person_columns};
+use crate::store::{Db, StoreError, StoreResult, WriteTx, sql};
 
 #[derive(Clone, Debug)]
 pub struct ProposalRecord {
@@ -70,33 +70,26 @@ macro_rules! select_proposals {
 }
 
 pub async fn find(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalRecord>> {
-    let row = sqlx::query(select_proposals!("WHERE p.id = $1"))
-        .bind(id)
-        .fetch_optional(&mut *conn)
-        .await?;
-    row.as_ref().map(proposal_from_row).transpose()
+    let query = sqlx::query(select_proposals!("WHERE p.id = $1")).bind(id);
+    rows::optional(conn, query, proposal_from_row).await
 }
 
 /// The metric's open proposal (draft, in review or sent back), if any.
 pub async fn open_for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Option<ProposalRecord>> {
-    let row = sqlx::query(select_proposals!(
+    let query = sqlx::query(select_proposals!(
         "WHERE p.metric_id = $1 AND p.state IN ('draft', 'in_review', 'sent_back')"
     ))
-    .bind(metric_id)
-    .fetch_optional(&mut *conn)
-    .await?;
-    row.as_ref().map(proposal_from_row).transpose()
+    .bind(metric_id);
+    rows::optional(conn, query, proposal_from_row).await
 }
 
 /// Every proposal of a metric, newest first.
 pub async fn for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<ProposalRecord>> {
-    let rows = sqlx::query(select_proposals!(
+    let query = sqlx::query(select_proposals!(
         "WHERE p.metric_id = $1 ORDER BY p.id DESC"
     ))
-    .bind(metric_id)
-    .fetch_all(&mut *conn)
-    .await?;
-    rows.iter().map(proposal_from_row).collect()
+    .bind(metric_id);
+    rows::all(conn, query, proposal_from_row).await
 }
 
 /// Proposals in the given states, least recently touched first (the inboxes filter further).
@@ -107,21 +100,16 @@ pub async fn in_states(
     if states.is_empty() {
         return Ok(Vec::new());
     }
-    // Only numbered placeholders are spliced in; the states travel as bound parameters.
-    let placeholders = (1..=states.len())
-        .map(|i| format!("${i}"))
-        .collect::<Vec<_>>()
-        .join(", ");
     let sql = format!(
-        "{} WHERE p.state IN ({placeholders}) ORDER BY p.updated_at, p.id",
-        select_proposals!("")
+        "{} WHERE p.state IN ({}) ORDER BY p.updated_at, p.id",
+        select_proposals!(""),
+        sql::placeholders(states.len())
     );
     let mut query = sqlx::query(sqlx::AssertSqlSafe(sql));
     for s in states {
         query = query.bind(s.as_str());
     }
-    let rows = query.fetch_all(&mut *conn).await?;
-    rows.iter().map(proposal_from_row).collect()
+    rows::all(conn, query, proposal_from_row).await
 }
 
 pub async fn insert_proposal(w: &mut WriteTx, metric_id: i64, author_id: i64) -> StoreResult<i64> {
