@@ -13,8 +13,8 @@ pub use bundles::{
 };
 pub use inserts::{NewRevision, insert_comment, insert_review, insert_revision, insert_signoff};
 
-use sqlx::Row;
-use sqlx::any::AnyRow;
+use sqlx::any::{Any, AnyRow};
+use sqlx::{Encode, Row, Type};
 
 use crate::domain::proposal::ProposalState;
 use crate::domain::{Person, Timestamp};
@@ -125,10 +125,25 @@ pub async fn insert_proposal(w: &mut WriteTx, metric_id: i64, author_id: i64) ->
     .await?)
 }
 
+/// Marks a proposal as changed now.
 async fn touch(w: &mut WriteTx, proposal_id: i64) -> StoreResult<()> {
     let now = w.now();
-    sqlx::query("UPDATE proposals SET updated_at = $1 WHERE id = $2")
-        .bind(now)
+    set_column(w, proposal_id, "updated_at", now).await
+}
+
+/// Sets one column of a proposal; `column` is a name written in this file, never input.
+async fn set_column<'v, T>(
+    w: &mut WriteTx,
+    proposal_id: i64,
+    column: &'static str,
+    value: T,
+) -> StoreResult<()>
+where
+    T: Encode<'v, Any> + Type<Any> + Send,
+{
+    let sql = format!("UPDATE proposals SET {column} = $1 WHERE id = $2");
+    sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(value)
         .bind(proposal_id)
         .execute(w.conn())
         .await?;
@@ -159,20 +174,10 @@ pub async fn set_state(
 
 pub async fn mark_sent_back(w: &mut WriteTx, proposal_id: i64, revision: i64) -> StoreResult<()> {
     set_state(w, proposal_id, ProposalState::SentBack, "").await?;
-    sqlx::query("UPDATE proposals SET sent_back_revision = $1 WHERE id = $2")
-        .bind(revision)
-        .bind(proposal_id)
-        .execute(w.conn())
-        .await?;
-    Ok(())
+    set_column(w, proposal_id, "sent_back_revision", revision).await
 }
 
 pub async fn mark_approved(w: &mut WriteTx, proposal_id: i64, version: i64) -> StoreResult<()> {
     set_state(w, proposal_id, ProposalState::Approved, "").await?;
-    sqlx::query("UPDATE proposals SET version_number = $1 WHERE id = $2")
-        .bind(version)
-        .bind(proposal_id)
-        .execute(w.conn())
-        .await?;
-    Ok(())
+    set_column(w, proposal_id, "version_number", version).await
 }
