@@ -69,7 +69,7 @@ pub async fn issue(
     w.record(
         actor,
         "token.issued",
-        &format!("token:{id}"),
+        &subject(id),
         json!({"after": {"username": user.username, "prefix": prefix, "scope": scope, "label": label, "expires_at": expires_at}}),
     )
     .await?;
@@ -87,6 +87,11 @@ pub async fn issue(
             last_used_at: None,
         },
     ))
+}
+
+/// The subject of a token's events: `token:ID`.
+fn subject(id: i64) -> String {
+    format!("token:{id}")
 }
 
 /// Revokes a token; revoking twice is a conflict.
@@ -109,7 +114,7 @@ pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<Toke
     w.record(
         actor,
         "token.revoked",
-        &format!("token:{id}"),
+        &subject(id),
         json!({"before": {"revoked_at": null}, "after": {"revoked_at": now}, "username": info.username, "prefix": info.prefix}),
     )
     .await?;
