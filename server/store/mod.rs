@@ -4,6 +4,11 @@
 //! each backend has its own migrations folder (docs/architecture.md says why). Every write that
 //! changes state goes through a [`WriteTx`], which serialises writers and appends the change's
 //! event to the event record inside the same transaction.
+//!
+//! Besides a file per table or concern: `handle` holds the [`Store`] and opening it,
+//! `connections` the connections it hands out, `write` the [`WriteTx`], `db` connections whose
+//! statements are bounded in time, `error` the [`StoreError`]; the tables' files share `rows`
+//! (reading rows into records) and `sql` (SQL built at run time).
 
 pub mod audited;
 mod codecs;
