@@ -1,8 +1,6 @@
 //! Metric keys: `[a-z0-9][a-z0-9_.-]{0,63}` (docs/design.md).
 
-use std::fmt;
-
-use serde::{Deserialize, Deserializer, Serialize};
+use serde::Serialize;
 
 #[derive(Clone, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
 #[serde(transparent)]
@@ -31,44 +29,6 @@ impl MetricKey {
             Err(MetricKeyError(text.to_string()))
         }
     }
-
-    /// A key read back from the database, which held only parsed keys.
-    pub fn from_stored(text: String) -> MetricKey {
-        MetricKey(text)
-    }
-
-    pub fn as_str(&self) -> &str {
-        &self.0
-    }
 }
 
-impl PartialEq<str> for MetricKey {
-    fn eq(&self, other: &str) -> bool {
-        self.0 == other
-    }
-}
-
-impl PartialEq<&str> for MetricKey {
-    fn eq(&self, other: &&str) -> bool {
-        self.0 == *other
-    }
-}
-
-impl AsRef<str> for MetricKey {
-    fn as_ref(&self) -> &str {
-        &self.0
-    }
-}
-
-impl fmt::Display for MetricKey {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(&self.0)
-    }
-}
-
-impl<'de> Deserialize<'de> for MetricKey {
-    fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
-        let text = String::deserialize(deserializer)?;
-        MetricKey::parse(&text).map_err(serde::de::Error::custom)
-    }
-}
+super::validated_text::validated_text!(MetricKey);

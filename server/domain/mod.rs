@@ -14,6 +14,7 @@ pub mod proposal;
 pub mod text;
 pub mod thresholds;
 pub mod time;
+mod validated_text;
 
 pub use key::MetricKey;
 pub use metric::{Metric, Owner};

@@ -5,7 +5,7 @@ use std::collections::BTreeSet;
 use std::fmt;
 use std::str::FromStr;
 
-use serde::{Deserialize, Deserializer, Serialize};
+use serde::{Deserialize, Serialize};
 
 use super::Timestamp;
 use super::text::{self, TextError};
@@ -52,47 +52,9 @@ impl Username {
             .map(|k| Username(k.as_str().to_string()))
             .map_err(|_| UsernameError(text.to_string()))
     }
-
-    /// A username read back from the database, which held only parsed usernames.
-    pub fn from_stored(text: String) -> Username {
-        Username(text)
-    }
-
-    pub fn as_str(&self) -> &str {
-        &self.0
-    }
 }
 
-impl PartialEq<str> for Username {
-    fn eq(&self, other: &str) -> bool {
-        self.0 == other
-    }
-}
-
-impl PartialEq<&str> for Username {
-    fn eq(&self, other: &&str) -> bool {
-        self.0 == *other
-    }
-}
-
-impl AsRef<str> for Username {
-    fn as_ref(&self) -> &str {
-        &self.0
-    }
-}
-
-impl fmt::Display for Username {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(&self.0)
-    }
-}
-
-impl<'de> Deserialize<'de> for Username {
-    fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
-        let text = String::deserialize(deserializer)?;
-        Username::parse(&text).map_err(serde::de::Error::custom)
-    }
-}
+super::validated_text::validated_text!(Username);
 
 /// A display name: 1 to 200 characters on one line, shown beside every decision a person
 /// makes.

@@ -353,31 +353,26 @@ pub fn grade_all_with(
 
 type BlockArgs = ([f64; 4], [f64; 2], f64, u8);
 
-/// [`grade_block`] compiled for AVX2.
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-fn grade_block_avx2(
-    args: BlockArgs,
-    values: &[f64],
-    place: &mut [u8],
-    severity: &mut [f64],
-    shade: &mut [u8],
-) {
-    grade_block(args, values, place, severity, shade);
+/// Defines `$name`: [`grade_block`] compiled with the processor features `$features` enabled.
+macro_rules! grade_block_for {
+    ($name:ident, $features:literal) => {
+        #[doc = concat!("[`grade_block`] compiled for `", $features, "`.")]
+        #[cfg(target_arch = "x86_64")]
+        #[target_feature(enable = $features)]
+        fn $name(
+            args: BlockArgs,
+            values: &[f64],
+            place: &mut [u8],
+            severity: &mut [f64],
+            shade: &mut [u8],
+        ) {
+            grade_block(args, values, place, severity, shade);
+        }
+    };
 }
 
-/// [`grade_block`] compiled for AVX-512.
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx512bw")]
-fn grade_block_avx512(
-    args: BlockArgs,
-    values: &[f64],
-    place: &mut [u8],
-    severity: &mut [f64],
-    shade: &mut [u8],
-) {
-    grade_block(args, values, place, severity, shade);
-}
+grade_block_for!(grade_block_avx2, "avx2");
+grade_block_for!(grade_block_avx512, "avx512f,avx512bw");
 
 /// One block of [`grade_all`]: three simple loops over slices of one length, each of which
 /// the compiler turns into vector code.

@@ -5,7 +5,7 @@ pub mod document;
 pub mod signing;
 pub mod withhold;
 
-use std::sync::{Arc, Mutex};
+use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::{Duration, Instant};
 
 use crate::domain::Timestamp;
@@ -132,13 +132,16 @@ impl Publisher {
         &self.signer
     }
 
+    /// The cache of the current set, locked.
+    fn current_lock(&self) -> MutexGuard<'_, Option<Cached>> {
+        self.current
+            .lock()
+            .expect("the cache lock is never poisoned")
+    }
+
     /// The cached set, and whether it is still fresh.
     fn cached(&self, now: Timestamp) -> Option<(Arc<Rendered>, bool)> {
-        let guard = self
-            .current
-            .lock()
-            .expect("the cache lock is never poisoned");
-        guard.as_ref().map(|c| {
+        self.current_lock().as_ref().map(|c| {
             let fresh = c.checked.elapsed() < FRESHNESS && c.valid_until.is_none_or(|t| now < t);
             (c.rendered.clone(), fresh)
         })
@@ -167,16 +170,11 @@ impl Publisher {
             let (revision, _) = versions::set_state(&mut conn, now, now).await?;
             (revision, versions::next_scheduled(&mut conn, now).await?)
         };
-        let reuse = {
-            let guard = self
-                .current
-                .lock()
-                .expect("the cache lock is never poisoned");
-            guard
-                .as_ref()
-                .filter(|c| c.rendered.set_revision == revision)
-                .map(|c| c.rendered.clone())
-        };
+        let reuse = self
+            .current_lock()
+            .as_ref()
+            .filter(|c| c.rendered.set_revision == revision)
+            .map(|c| c.rendered.clone());
         let rendered = match reuse {
             Some(r) => r,
             None => {
@@ -184,10 +182,7 @@ impl Publisher {
                 Arc::new(document::render(&c, &self.signer))
             }
         };
-        *self
-            .current
-            .lock()
-            .expect("the cache lock is never poisoned") = Some(Cached {
+        *self.current_lock() = Some(Cached {
             rendered: rendered.clone(),
             checked: Instant::now(),
             valid_until,
@@ -197,11 +192,7 @@ impl Publisher {
 
     /// The cached set does not yet contain a change that is due by `now`.
     fn current_valid_at(&self, now: Timestamp) -> bool {
-        let guard = self
-            .current
-            .lock()
-            .expect("the cache lock is never poisoned");
-        guard
+        self.current_lock()
             .as_ref()
             .is_some_and(|c| c.valid_until.is_none_or(|t| now < t))
     }

@@ -3,9 +3,10 @@
 use serde::Serialize;
 use serde_json::{Map, json};
 use sqlx::Row;
-use sqlx::any::AnyRow;
+use sqlx::any::{Any, AnyRow};
+use sqlx::{Encode, Type};
 
-use super::{Actor, Store, StoreError, StoreResult, WriteTx};
+use super::{Actor, Store, StoreError, StoreResult, WriteTx, sql};
 use crate::domain::metric::MetricFields;
 use crate::domain::{Metric, MetricKey, Owner, Problems, Role, Username};
 
@@ -73,11 +74,7 @@ async fn attach_owners_and_tags(
     if metrics.is_empty() {
         return Ok(());
     }
-    // Only numbered placeholders are spliced in; the ids travel as bound parameters.
-    let placeholders = (1..=metrics.len())
-        .map(|i| format!("${i}"))
-        .collect::<Vec<_>>()
-        .join(", ");
+    let placeholders = sql::placeholders(metrics.len());
     let owners_sql = format!(
         "SELECT o.metric_id, u.username, u.display_name FROM metric_owners o \
          JOIN users u ON u.id = o.user_id WHERE o.metric_id IN ({placeholders}) \
@@ -270,30 +267,37 @@ async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec
 }
 
 async fn write_owners(w: &mut WriteTx, metric_id: i64, owners: &[(i64, Owner)]) -> StoreResult<()> {
-    sqlx::query("DELETE FROM metric_owners WHERE metric_id = $1")
-        .bind(metric_id)
-        .execute(w.conn())
-        .await?;
-    for (position, (user_id, _)) in owners.iter().enumerate() {
-        sqlx::query("INSERT INTO metric_owners (metric_id, user_id, position) VALUES ($1, $2, $3)")
-            .bind(metric_id)
-            .bind(user_id)
-            .bind(position as i64)
-            .execute(w.conn())
-            .await?;
-    }
-    Ok(())
+    let user_ids: Vec<i64> = owners.iter().map(|(user_id, _)| *user_id).collect();
+    write_list(w, metric_id, "metric_owners", "user_id", &user_ids).await
 }
 
 async fn write_tags(w: &mut WriteTx, metric_id: i64, tags: &[String]) -> StoreResult<()> {
-    sqlx::query("DELETE FROM metric_tags WHERE metric_id = $1")
+    write_list(w, metric_id, "metric_tags", "tag", tags).await
+}
+
+/// Replaces one of a metric's ordered lists (its owners or its tags): the rows of `table`,
+/// each holding one item in `column` and its position. `table` and `column` are names written
+/// in this file, never input.
+async fn write_list<T>(
+    w: &mut WriteTx,
+    metric_id: i64,
+    table: &'static str,
+    column: &'static str,
+    items: &[T],
+) -> StoreResult<()>
+where
+    T: Encode<'static, Any> + Type<Any> + Clone + Sync,
+{
+    let delete = format!("DELETE FROM {table} WHERE metric_id = $1");
+    sqlx::query(sqlx::AssertSqlSafe(delete))
         .bind(metric_id)
         .execute(w.conn())
         .await?;
-    for (position, tag) in tags.iter().enumerate() {
-        sqlx::query("INSERT INTO metric_tags (metric_id, tag, position) VALUES ($1, $2, $3)")
+    let insert = format!("INSERT INTO {table} (metric_id, {column}, position) VALUES ($1, $2, $3)");
+    for (position, item) in items.iter().enumerate() {
+        sqlx::query(sqlx::AssertSqlSafe(insert.clone()))
             .bind(metric_id)
-            .bind(tag)
+            .bind(item.clone())
             .bind(position as i64)
             .execute(w.conn())
             .await?;

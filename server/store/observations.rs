@@ -87,12 +87,17 @@ async fn touch(tx: &mut Db, history: i64) -> StoreResult<()> {
             .execute(&mut *tx)
             .await?;
     if done.rows_affected() == 0 {
-        return Err(StoreError::Conflict(
-            "the upload stalled for so long that it was given up; nothing was changed, send it again"
-                .into(),
-        ));
+        return Err(given_up());
     }
     Ok(())
+}
+
+/// The answer to an upload whose history the sweep took as abandoned.
+fn given_up() -> StoreError {
+    StoreError::Conflict(
+        "the upload stalled for so long that it was given up; nothing was changed, send it again"
+            .into(),
+    )
 }
 
 /// The INSERT of one statement's worth of rows into `history`, bound and ready, ending with
@@ -256,10 +261,7 @@ pub async fn put_live(w: &mut WriteTx, metric_id: i64, new: i64, rows: u64) -> S
     .execute(w.conn())
     .await?;
     if done.rows_affected() == 0 {
-        return Err(StoreError::Conflict(
-            "the upload stalled for so long that it was given up; nothing was changed, send it again"
-                .into(),
-        ));
+        return Err(given_up());
     }
     Ok(())
 }

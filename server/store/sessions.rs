@@ -3,11 +3,11 @@
 
 use sqlx::Row;
 
-use super::{Store, StoreResult, WriteTx};
+use super::{Store, StoreResult, WriteTx, rows};
 use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::Timestamp;
 use crate::domain::User;
 use crate::domain::access::Session;
-use crate::domain::{Roles, Timestamp};
 
 /// A session ends after this long without a request (OWASP ASVS 4.0.3 §3.3.2 allows 12 hours
 /// of use; idle sessions end sooner).
@@ -51,7 +51,8 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
     let id_hash = stored_hash(secret);
     let now = Timestamp::now();
     let row = sqlx::query(
-        "SELECT s.csrf_token, s.last_seen_at, u.id, u.username, u.display_name, u.roles, u.created_at \
+        "SELECT s.csrf_token, s.last_seen_at, u.id, u.username, u.display_name, u.roles, u.active, \
+         u.created_at \
          FROM sessions s JOIN users u ON u.id = s.user_id \
          WHERE s.id_hash = $1 AND s.expires_at > $2 AND s.last_seen_at > $3 AND u.active = 1",
     )
@@ -67,18 +68,10 @@ pub async fn lookup(store: &Store, secret: &str) -> StoreResult<Option<Session>>
     if last_seen < now.plus_seconds(-TOUCH_EVERY_SECONDS) {
         store.usage.session_seen(&id_hash, now);
     }
-    let roles: String = row.try_get("roles")?;
     Ok(Some(Session {
         id_hash,
         csrf_token: row.try_get("csrf_token")?,
-        user: User {
-            id: row.try_get("id")?,
-            username: row.try_get("username")?,
-            display_name: row.try_get("display_name")?,
-            roles: Roles::parse_list(&roles).unwrap_or_default(),
-            active: true,
-            created_at: row.try_get("created_at")?,
-        },
+        user: rows::user(&row)?,
     }))
 }
 

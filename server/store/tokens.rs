@@ -5,11 +5,11 @@ use serde_json::json;
 use sqlx::Row;
 use sqlx::any::AnyRow;
 
-use super::{Actor, Store, StoreError, StoreResult, WriteTx};
+use super::{Actor, Store, StoreError, StoreResult, WriteTx, rows};
 use crate::auth::secret::{random_token, stored_hash};
+use crate::domain::Timestamp;
 use crate::domain::User;
 use crate::domain::access::{Scope, TokenInfo};
-use crate::domain::{Roles, Timestamp};
 
 fn info_from_row(row: &AnyRow) -> StoreResult<TokenInfo> {
     let scope: String = row.try_get("scope")?;
@@ -24,6 +24,18 @@ fn info_from_row(row: &AnyRow) -> StoreResult<TokenInfo> {
         revoked_at: row.try_get("revoked_at")?,
         last_used_at: row.try_get("last_used_at")?,
     })
+}
+
+/// `SELECT <token columns, with the owner's username> FROM api_tokens <rest>` as one static
+/// string, for [`info_from_row`].
+macro_rules! select_tokens {
+    ($rest:literal) => {
+        concat!(
+            "SELECT t.id, u.username, t.prefix, t.scope, t.label, t.created_at, t.expires_at, ",
+            "t.revoked_at, t.last_used_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+            $rest
+        )
+    };
 }
 
 /// The shown prefix: enough to tell tokens apart in a list, far too little to guess the rest.
@@ -57,7 +69,7 @@ pub async fn issue(
     w.record(
         actor,
         "token.issued",
-        &format!("token:{id}"),
+        &subject(id),
         json!({"after": {"username": user.username, "prefix": prefix, "scope": scope, "label": label, "expires_at": expires_at}}),
     )
     .await?;
@@ -77,20 +89,16 @@ pub async fn issue(
     ))
 }
 
+/// The subject of a token's events: `token:ID`.
+fn subject(id: i64) -> String {
+    format!("token:{id}")
+}
+
 /// Revokes a token; revoking twice is a conflict.
 pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<TokenInfo> {
-    let row = sqlx::query(concat!(
-        "SELECT t.id, u.username, t.prefix, t.scope, t.label, t.created_at, t.expires_at, ",
-        "t.revoked_at, t.last_used_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
-        "WHERE t.id = $1"
-    ))
-    .bind(id)
-    .fetch_optional(w.conn())
-    .await?;
-    let mut info = row
-        .as_ref()
-        .map(info_from_row)
-        .transpose()?
+    let query = sqlx::query(select_tokens!("WHERE t.id = $1")).bind(id);
+    let mut info = rows::optional(w.conn(), query, info_from_row)
+        .await?
         .ok_or_else(|| StoreError::NotFound(format!("no token with id {id}")))?;
     if info.revoked_at.is_some() {
         return Err(StoreError::Conflict(format!(
@@ -106,7 +114,7 @@ pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<Toke
     w.record(
         actor,
         "token.revoked",
-        &format!("token:{id}"),
+        &subject(id),
         json!({"before": {"revoked_at": null}, "after": {"revoked_at": now}, "username": info.username, "prefix": info.prefix}),
     )
     .await?;
@@ -116,15 +124,11 @@ pub async fn revoke(w: &mut WriteTx, actor: &Actor, id: i64) -> StoreResult<Toke
 
 /// Every token, newest first, optionally of one person.
 pub async fn list(store: &Store, username: Option<&str>) -> StoreResult<Vec<TokenInfo>> {
-    let rows = sqlx::query(concat!(
-        "SELECT t.id, u.username, t.prefix, t.scope, t.label, t.created_at, t.expires_at, ",
-        "t.revoked_at, t.last_used_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+    let query = sqlx::query(select_tokens!(
         "WHERE ($1 = '' OR u.username = $1) ORDER BY t.id DESC"
     ))
-    .bind(username.unwrap_or(""))
-    .fetch_all(&mut store.read().await?)
-    .await?;
-    rows.iter().map(info_from_row).collect()
+    .bind(username.unwrap_or(""));
+    rows::all(&mut store.read().await?, query, info_from_row).await
 }
 
 /// The person and scope behind a presented token, if it is usable: not revoked, not expired,
@@ -133,7 +137,7 @@ pub async fn authenticate(store: &Store, secret: &str) -> StoreResult<Option<(Us
     let now = Timestamp::now();
     let row = sqlx::query(concat!(
         "SELECT t.id AS token_id, t.scope, t.last_used_at, u.id, u.username, u.display_name, ",
-        "u.roles, u.created_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
+        "u.roles, u.active, u.created_at FROM api_tokens t JOIN users u ON u.id = t.user_id ",
         "WHERE t.token_hash = $1 AND t.revoked_at IS NULL ",
         "AND (t.expires_at IS NULL OR t.expires_at > $2) AND u.active = 1"
     ))
@@ -150,16 +154,8 @@ pub async fn authenticate(store: &Store, secret: &str) -> StoreResult<Option<(Us
         store.usage.token_used(token_id, now);
     }
     let scope: String = row.try_get("scope")?;
-    let roles: String = row.try_get("roles")?;
     Ok(Some((
-        User {
-            id: row.try_get("id")?,
-            username: row.try_get("username")?,
-            display_name: row.try_get("display_name")?,
-            roles: Roles::parse_list(&roles).unwrap_or_default(),
-            active: true,
-            created_at: row.try_get("created_at")?,
-        },
+        rows::user(&row)?,
         Scope::parse(&scope).unwrap_or(Scope::Read),
     )))
 }

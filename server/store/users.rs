@@ -2,23 +2,11 @@
 
 use serde_json::json;
 use sqlx::Row;
-use sqlx::any::AnyRow;
+use sqlx::any::Any;
+use sqlx::{Encode, Type};
 
-use super::{Actor, Store, StoreError, StoreResult, WriteTx};
+use super::{Actor, Store, StoreError, StoreResult, WriteTx, rows};
 use crate::domain::{Roles, User, Username};
-
-fn user_from_row(row: &AnyRow) -> StoreResult<User> {
-    let roles: String = row.try_get("roles")?;
-    let active: i64 = row.try_get("active")?;
-    Ok(User {
-        id: row.try_get("id")?,
-        username: row.try_get("username")?,
-        display_name: row.try_get("display_name")?,
-        roles: Roles::parse_list(&roles).unwrap_or_default(),
-        active: active != 0,
-        created_at: row.try_get("created_at")?,
-    })
-}
 
 /// `SELECT <user columns> FROM users <rest>` as one static string.
 macro_rules! select_users {
@@ -87,11 +75,8 @@ pub fn subject(username: &str) -> String {
 }
 
 pub async fn find(store: &Store, username: &str) -> StoreResult<Option<User>> {
-    let row = sqlx::query(select_users!("WHERE username = $1"))
-        .bind(username)
-        .fetch_optional(&mut store.read().await?)
-        .await?;
-    row.as_ref().map(user_from_row).transpose()
+    let query = sqlx::query(select_users!("WHERE username = $1")).bind(username);
+    rows::optional(&mut store.read().await?, query, rows::user).await
 }
 
 pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
@@ -101,11 +86,8 @@ pub async fn get(store: &Store, username: &str) -> StoreResult<User> {
 }
 
 pub async fn by_id(store: &Store, id: i64) -> StoreResult<Option<User>> {
-    let row = sqlx::query(select_users!("WHERE id = $1"))
-        .bind(id)
-        .fetch_optional(&mut store.read().await?)
-        .await?;
-    row.as_ref().map(user_from_row).transpose()
+    let query = sqlx::query(select_users!("WHERE id = $1")).bind(id);
+    rows::optional(&mut store.read().await?, query, rows::user).await
 }
 
 /// The user and stored password hash for a sign-in attempt.
@@ -115,27 +97,43 @@ pub async fn credentials(store: &Store, username: &str) -> StoreResult<Option<(U
         .fetch_optional(&mut store.read().await?)
         .await?;
     match row {
-        Some(row) => Ok(Some((user_from_row(&row)?, row.try_get("password_hash")?))),
+        Some(row) => Ok(Some((rows::user(&row)?, row.try_get("password_hash")?))),
         None => Ok(None),
     }
 }
 
 pub async fn list(store: &Store) -> StoreResult<Vec<User>> {
-    let rows = sqlx::query(select_users!("ORDER BY username"))
-        .fetch_all(&mut store.read().await?)
-        .await?;
-    rows.iter().map(user_from_row).collect()
+    let query = sqlx::query(select_users!("ORDER BY username"));
+    rows::all(&mut store.read().await?, query, rows::user).await
 }
 
 async fn locked_user(w: &mut WriteTx, username: &str) -> StoreResult<User> {
-    let row = sqlx::query(select_users!("WHERE username = $1"))
-        .bind(username)
-        .fetch_optional(w.conn())
-        .await?;
-    row.as_ref()
-        .map(user_from_row)
-        .transpose()?
+    let query = sqlx::query(select_users!("WHERE username = $1")).bind(username);
+    rows::optional(w.conn(), query, rows::user)
+        .await?
         .ok_or_else(|| not_found(username))
+}
+
+/// Sets one column of the person `user_id` to `value` and stamps the row with the time of the
+/// change; `column` is a name written in this file, never input.
+async fn update<'v, T>(
+    w: &mut WriteTx,
+    user_id: i64,
+    column: &'static str,
+    value: T,
+) -> StoreResult<()>
+where
+    T: Encode<'v, Any> + Type<Any> + Send,
+{
+    let now = w.now();
+    let sql = format!("UPDATE users SET {column} = $1, updated_at = $2 WHERE id = $3");
+    sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(value)
+        .bind(now)
+        .bind(user_id)
+        .execute(w.conn())
+        .await?;
+    Ok(())
 }
 
 pub async fn set_roles(
@@ -148,13 +146,7 @@ pub async fn set_roles(
     if user.roles == *roles {
         return Ok(user);
     }
-    let now = w.now();
-    sqlx::query("UPDATE users SET roles = $1, updated_at = $2 WHERE id = $3")
-        .bind(roles.to_list())
-        .bind(now)
-        .bind(user.id)
-        .execute(w.conn())
-        .await?;
+    update(w, user.id, "roles", roles.to_list()).await?;
     w.record(
         actor,
         "user.roles_changed",
@@ -176,13 +168,7 @@ pub async fn set_display_name(
     if user.display_name == display_name {
         return Ok(user);
     }
-    let now = w.now();
-    sqlx::query("UPDATE users SET display_name = $1, updated_at = $2 WHERE id = $3")
-        .bind(display_name)
-        .bind(now)
-        .bind(user.id)
-        .execute(w.conn())
-        .await?;
+    update(w, user.id, "display_name", display_name).await?;
     w.record(
         actor,
         "user.display_name_changed",
@@ -206,13 +192,7 @@ pub async fn set_active(
     if user.active == active {
         return Ok(user);
     }
-    let now = w.now();
-    sqlx::query("UPDATE users SET active = $1, updated_at = $2 WHERE id = $3")
-        .bind(i64::from(active))
-        .bind(now)
-        .bind(user.id)
-        .execute(w.conn())
-        .await?;
+    update(w, user.id, "active", i64::from(active)).await?;
     if !active {
         super::sessions::end_all_for(w, user.id).await?;
     }
@@ -240,13 +220,7 @@ pub async fn set_password(
     password_hash: &str,
 ) -> StoreResult<User> {
     let user = locked_user(w, username).await?;
-    let now = w.now();
-    sqlx::query("UPDATE users SET password_hash = $1, updated_at = $2 WHERE id = $3")
-        .bind(password_hash)
-        .bind(now)
-        .bind(user.id)
-        .execute(w.conn())
-        .await?;
+    update(w, user.id, "password_hash", password_hash).await?;
     super::sessions::end_all_for(w, user.id).await?;
     w.record(actor, "user.password_reset", &subject(username), json!({}))
         .await?;

@@ -7,10 +7,10 @@ use sqlx::Row;
 
 use super::Db;
 
-use super::{StoreError, StoreResult, WriteTx};
+use super::rows::{self, cuts_from_row};
+use super::{StoreResult, WriteTx};
 use crate::domain::Timestamp;
 use crate::domain::proposal::ThresholdContent;
-use crate::domain::thresholds::{CutSet, Direction, Shades};
 
 /// A version's place in time, seen from one instant.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
@@ -65,28 +65,6 @@ impl VersionRecord {
     }
 }
 
-/// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
-pub(super) fn cuts_from_row(row: &sqlx::any::AnyRow) -> StoreResult<(CutSet, Shades)> {
-    let direction: String = row.try_get("direction")?;
-    let direction: Direction = direction
-        .parse()
-        .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
-    let cuts = CutSet::new(
-        direction,
-        [
-            row.try_get("cut_1")?,
-            row.try_get("cut_2")?,
-            row.try_get("cut_3")?,
-            row.try_get("cut_4")?,
-        ],
-    )
-    .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
-    let shades: i64 = row.try_get("shades")?;
-    let shades =
-        Shades::new(shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
-    Ok((cuts, shades))
-}
-
 fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {
     let (cuts, shades) = cuts_from_row(row)?;
     let effective_from: Timestamp = row.try_get("effective_from")?;
@@ -128,23 +106,19 @@ macro_rules! select_versions {
 
 /// Every version of a metric, oldest first.
 pub async fn list(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<VersionRecord>> {
-    let rows = sqlx::query(select_versions!("WHERE metric_id = $1 ORDER BY number"))
-        .bind(metric_id)
-        .fetch_all(&mut *conn)
-        .await?;
-    rows.iter().map(version_from_row).collect()
+    let query =
+        sqlx::query(select_versions!("WHERE metric_id = $1 ORDER BY number")).bind(metric_id);
+    rows::all(conn, query, version_from_row).await
 }
 
 /// The latest approved version (scheduled ones included): the one a new version follows in
 /// valid time, since effective times never run backwards.
 pub async fn latest(conn: &mut Db, metric_id: i64) -> StoreResult<Option<VersionRecord>> {
-    let row = sqlx::query(select_versions!(
+    let query = sqlx::query(select_versions!(
         "WHERE metric_id = $1 ORDER BY number DESC LIMIT 1"
     ))
-    .bind(metric_id)
-    .fetch_optional(&mut *conn)
-    .await?;
-    row.as_ref().map(version_from_row).transpose()
+    .bind(metric_id);
+    rows::optional(conn, query, version_from_row).await
 }
 
 /// The version in force at `as_of` as the register knew it at `known_at`: the latest one
@@ -155,15 +129,13 @@ pub async fn in_force(
     as_of: Timestamp,
     known_at: Timestamp,
 ) -> StoreResult<Option<VersionRecord>> {
-    let row = sqlx::query(select_versions!(
+    let query = sqlx::query(select_versions!(
         "WHERE metric_id = $1 AND effective_from <= $2 AND approved_at <= $3 ORDER BY number DESC LIMIT 1"
     ))
     .bind(metric_id)
     .bind(as_of)
-    .bind(known_at)
-    .fetch_optional(&mut *conn)
-    .await?;
-    row.as_ref().map(version_from_row).transpose()
+    .bind(known_at);
+    rows::optional(conn, query, version_from_row).await
 }
 
 /// Each version's status at `now`, given all of a metric's versions in order.
@@ -213,37 +185,30 @@ pub async fn next_number(w: &mut WriteTx, metric_id: i64) -> StoreResult<i64> {
 
 /// Records a version (never changed afterwards: the database refuses it).
 pub async fn insert(w: &mut WriteTx, v: &NewVersion<'_>) -> StoreResult<()> {
-    let number = v.number;
-    let [c1, c2, c3, c4] = v.content.cuts.values();
     let approved_at = w.now();
-    sqlx::query(
+    let query = sqlx::query(
         "INSERT INTO versions (metric_id, number, proposal_id, revision_number, revision_hash, \
          direction, cut_1, cut_2, cut_3, cut_4, shades, unit, effective_from, approved_at, \
          rationale, canonical_text, approvers, signatory, metric_name, approval_seq) \
          VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $17, $18, $19, $20)",
     )
     .bind(v.metric_id)
-    .bind(number)
+    .bind(v.number)
     .bind(v.proposal_id)
     .bind(v.revision_number)
-    .bind(v.revision_hash)
-    .bind(v.content.direction().as_str())
-    .bind(c1)
-    .bind(c2)
-    .bind(c3)
-    .bind(c4)
-    .bind(i64::from(v.content.shades.get()))
-    .bind(&v.content.unit)
-    .bind(v.effective_from)
-    .bind(approved_at)
-    .bind(&v.content.rationale)
-    .bind(v.canonical_text)
-    .bind(serde_json::to_string(v.approvers).expect("names serialise"))
-    .bind(v.signatory)
-    .bind(v.metric_name)
-    .bind(v.approval_seq)
-    .execute(w.conn())
-    .await?;
+    .bind(v.revision_hash);
+    rows::bind_cuts(query, &v.content.cuts, v.content.shades)
+        .bind(&v.content.unit)
+        .bind(v.effective_from)
+        .bind(approved_at)
+        .bind(&v.content.rationale)
+        .bind(v.canonical_text)
+        .bind(serde_json::to_string(v.approvers).expect("names serialise"))
+        .bind(v.signatory)
+        .bind(v.metric_name)
+        .bind(v.approval_seq)
+        .execute(w.conn())
+        .await?;
     Ok(())
 }
 
@@ -290,7 +255,7 @@ pub async fn in_force_all(
     as_of: Timestamp,
     known_at: Timestamp,
 ) -> StoreResult<Vec<(String, VersionRecord)>> {
-    let rows = sqlx::query(concat!(
+    let query = sqlx::query(concat!(
         "SELECT m.key AS metric_key, v.id, v.metric_id, v.number, v.proposal_id, v.revision_number, ",
         "v.revision_hash, v.direction, v.cut_1, v.cut_2, v.cut_3, v.cut_4, v.shades, v.unit, ",
         "v.effective_from, v.approved_at, v.rationale, v.canonical_text, v.approvers, v.signatory, ",
@@ -300,12 +265,11 @@ pub async fn in_force_all(
         "AND w.effective_from <= $1 AND w.approved_at <= $2) ORDER BY m.key"
     ))
     .bind(as_of)
-    .bind(known_at)
-    .fetch_all(&mut *conn)
-    .await?;
-    rows.iter()
-        .map(|r| Ok((r.try_get("metric_key")?, version_from_row(r)?)))
-        .collect()
+    .bind(known_at);
+    rows::all(conn, query, |r| {
+        Ok((r.try_get("metric_key")?, version_from_row(r)?))
+    })
+    .await
 }
 
 /// Keys of metrics added to the register by `at`.
