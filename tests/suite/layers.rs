@@ -274,3 +274,28 @@ fn the_checks_see_imports_where_they_are() {
         g["charts::history::draw"]
     );
 }
+
+/// Lines a file may hold before its opening comment must say why it is longer (DEVELOPERS.md:
+/// "small enough to read in one sitting"; the figure is common practice, not a standard).
+const LINES_TO_READ_IN_ONE_SITTING: usize = 500;
+
+#[test]
+fn every_long_file_says_why_it_is_long() {
+    let mut long = Vec::new();
+    for (module, path) in modules() {
+        let text = std::fs::read_to_string(&path).unwrap();
+        let lines = text.lines().count();
+        let opening: String = text
+            .lines()
+            .take_while(|l| l.starts_with("//!"))
+            .collect::<Vec<_>>()
+            .join("\n");
+        if lines > LINES_TO_READ_IN_ONE_SITTING && !opening.contains("Longer than") {
+            long.push(format!("{module} ({lines} lines)"));
+        }
+    }
+    assert!(
+        long.is_empty(),
+        "files over {LINES_TO_READ_IN_ONE_SITTING} lines whose opening comment does not say why (\"Longer than ... because ...\"): {long:?}"
+    );
+}
