@@ -335,21 +335,18 @@ pub async fn comment(
 pub async fn withdraw(store: &Store, by: &User, id: i64, reason: &str) -> OpResult<()> {
     let reason = text::multi_line("reason", reason, 0, REASON_MAX)
         .map_err(|e| single("reason", e.to_string()))?;
-    let mut w = store.begin_write().await?;
-    let (bundle, metric) = load(&mut w, id).await?;
-    let is_author = bundle.proposal.author.id == by.id;
-    workflow::may_withdraw(rules_actor(by, &metric), is_author, bundle.proposal.state)
-        .map_err(refusal)?;
-    records::set_state(&mut w, id, ProposalState::Withdrawn, &reason).await?;
-    w.record(
-        &actor_of(by),
-        "proposal.withdrawn",
-        &metric.subject(),
-        json!({"proposal": id, "reason": reason}),
+    close(
+        store,
+        by,
+        id,
+        ProposalState::Withdrawn,
+        &reason,
+        |by, metric, bundle| {
+            let is_author = bundle.proposal.author.id == by.id;
+            workflow::may_withdraw(rules_actor(by, metric), is_author, bundle.proposal.state)
+        },
     )
-    .await?;
-    w.commit().await?;
-    Ok(())
+    .await
 }
 
 /// `POST .../reject`: a reviewer, signatory or admin, while in review, with a reason.
@@ -359,13 +356,34 @@ pub async fn reject(store: &Store, by: &User, id: i64, reason: &str) -> OpResult
     if reason.trim().is_empty() {
         return Err(single("reason", "give the reason for rejecting"));
     }
+    close(
+        store,
+        by,
+        id,
+        ProposalState::Rejected,
+        &reason,
+        |by, metric, bundle| workflow::may_reject(rules_actor(by, metric), bundle.proposal.state),
+    )
+    .await
+}
+
+/// Closes a proposal (withdrawn or rejected) with its reason, when `rule` lets `by` do it on
+/// the proposal as it stands in the write transaction.
+async fn close(
+    store: &Store,
+    by: &User,
+    id: i64,
+    state: ProposalState,
+    reason: &str,
+    rule: impl FnOnce(&User, &Metric, &ProposalBundle) -> workflow::Rule,
+) -> OpResult<()> {
     let mut w = store.begin_write().await?;
     let (bundle, metric) = load(&mut w, id).await?;
-    workflow::may_reject(rules_actor(by, &metric), bundle.proposal.state).map_err(refusal)?;
-    records::set_state(&mut w, id, ProposalState::Rejected, &reason).await?;
+    rule(by, &metric, &bundle).map_err(refusal)?;
+    records::set_state(&mut w, id, state, reason).await?;
     w.record(
         &actor_of(by),
-        "proposal.rejected",
+        &format!("proposal.{}", state.as_str()),
         &metric.subject(),
         json!({"proposal": id, "reason": reason}),
     )
