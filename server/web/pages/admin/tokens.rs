@@ -1,57 +1,96 @@
 //! The API token pages: every token, the form that issues one, and revoking one.
 
+use std::collections::BTreeMap;
+
 use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
-use serde_json::json;
+use serde::Serialize;
 
-use super::{form_problems, require_admin};
-use crate::domain::access::{Scope, Session};
-use crate::domain::{Problems, Timestamp};
+use super::{TokenRow, form_problems, require_admin, token_rows};
+use crate::domain::access::{Scope, Session, TokenInfo};
+use crate::domain::{Problems, Timestamp, User, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{FormFields, base_context, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, field_errors, render};
 use crate::web::redirect::to_same_site;
+
+/// A person a token can be issued to.
+#[derive(Debug, Serialize)]
+pub struct TokenHolder<'a> {
+    pub username: &'a Username,
+    pub display_name: &'a str,
+}
+
+/// A token just issued: its secret, shown this once, and its details.
+#[derive(Debug, Serialize)]
+pub struct IssuedToken<'a> {
+    pub secret: &'a str,
+    pub info: &'a TokenInfo,
+}
+
+/// The text fields of the form that issues a token, as typed.
+#[derive(Debug, Serialize)]
+pub struct TokenFormValues {
+    pub username: String,
+    pub scope: String,
+    pub label: String,
+    pub expires_in_days: String,
+}
+
+/// Every token, the form that issues one (with the people it can be for), and the token just
+/// issued, if one was.
+#[derive(Debug, Serialize)]
+pub struct TokensPage<'a> {
+    pub tokens: Vec<TokenRow<'a>>,
+    /// The active people.
+    pub people: Vec<TokenHolder<'a>>,
+    pub issued: Option<IssuedToken<'a>>,
+    pub values: TokenFormValues,
+    pub errors: BTreeMap<String, String>,
+}
+
+impl PageData for TokensPage<'_> {
+    const TEMPLATE: &'static str = "admin_tokens.html";
+}
 
 fn tokens_page(
     session: &Session,
-    all: &[crate::domain::access::TokenInfo],
-    people: &[crate::domain::User],
-    issued: Option<(&str, &crate::domain::access::TokenInfo)>,
+    all: &[TokenInfo],
+    people: &[User],
+    issued: Option<(&str, &TokenInfo)>,
     form: Option<&FormFields>,
     problems: &Problems,
     status: StatusCode,
 ) -> Response {
-    let now = Timestamp::now();
-    let mut ctx = base_context(Some(session), "API tokens", "tokens");
-    ctx.insert(
-        "tokens",
-        &all.iter()
-            .map(|t| json!({"info": t, "usable": t.is_usable(now)}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert(
-        "people",
-        &people
+    let get = |name: &str| form.map(|f| f.get(name).to_string()).unwrap_or_default();
+    let data = TokensPage {
+        tokens: token_rows(all),
+        people: people
             .iter()
             .filter(|p| p.active)
-            .map(|p| json!({"username": p.username, "display_name": p.display_name}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert(
-        "issued",
-        &issued.map(|(secret, info)| json!({"secret": secret, "info": info})),
-    );
-    let get = |name: &str| form.map(|f| f.get(name).to_string()).unwrap_or_default();
-    ctx.insert(
-        "values",
-        &json!({"username": get("username"), "scope": get("scope"), "label": get("label"), "expires_in_days": get("expires_in_days")}),
-    );
-    ctx.insert("errors", &field_errors(problems));
-    render(status, "admin_tokens.html", &ctx)
+            .map(|p| TokenHolder {
+                username: &p.username,
+                display_name: &p.display_name,
+            })
+            .collect(),
+        issued: issued.map(|(secret, info)| IssuedToken { secret, info }),
+        values: TokenFormValues {
+            username: get("username"),
+            scope: get("scope"),
+            label: get("label"),
+            expires_in_days: get("expires_in_days"),
+        },
+        errors: field_errors(problems),
+    };
+    render(
+        status,
+        &Common::new(Some(session), "API tokens", "tokens"),
+        &data,
+    )
 }
 
 pub async fn tokens_list(

@@ -1,39 +1,92 @@
 //! The metric forms: adding a metric to the register and editing its details, re-shown with
 //! the problems of each field beside it.
 
+use std::collections::BTreeMap;
+
 use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
-use serde_json::json;
+use serde::Serialize;
 
 use super::parse_key;
 use crate::domain::access::Session;
 use crate::domain::metric::split_list;
-use crate::domain::{Metric, Problems, Role};
+use crate::domain::{FieldProblem, Metric, Problems, Role};
 use crate::ops::metrics::{self as metrics, MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{FormFields, base_context, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, field_errors, render};
+
+/// The metric form's fields as text.
+#[derive(Debug, Serialize)]
+pub struct MetricFormValues {
+    pub key: String,
+    pub name: String,
+    pub description: String,
+    pub unit: String,
+    /// Usernames separated by commas.
+    pub owners: String,
+    pub data_source: String,
+    pub review_cadence_months: String,
+    /// Separated by commas.
+    pub tags: String,
+}
 
 /// The form's fields as text, to re-show what was typed.
-fn form_values(metric: Option<&Metric>, form: Option<&FormFields>) -> serde_json::Value {
+fn form_values(metric: Option<&Metric>, form: Option<&FormFields>) -> MetricFormValues {
     let field = |name: &str, from_metric: String| match form {
         Some(f) => f.get(name).to_string(),
         None => from_metric,
     };
     let m = metric;
-    json!({
-        "key": field("key", m.map(|m| m.key.to_string()).unwrap_or_default()),
-        "name": field("name", m.map(|m| m.name.clone()).unwrap_or_default()),
-        "description": field("description", m.map(|m| m.description.clone()).unwrap_or_default()),
-        "unit": field("unit", m.map(|m| m.unit.clone()).unwrap_or_default()),
-        "owners": field("owners", m.map(|m| m.owners.iter().map(|o| o.username.as_str()).collect::<Vec<_>>().join(", ")).unwrap_or_default()),
-        "data_source": field("data_source", m.map(|m| m.data_source.clone()).unwrap_or_default()),
-        "review_cadence_months": field("review_cadence_months", m.and_then(|m| m.review_cadence_months).map(|n| n.to_string()).unwrap_or_default()),
-        "tags": field("tags", m.map(|m| m.tags.join(", ")).unwrap_or_default()),
-    })
+    let owners = |m: &Metric| {
+        m.owners
+            .iter()
+            .map(|o| o.username.as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    MetricFormValues {
+        key: field("key", m.map(|m| m.key.to_string()).unwrap_or_default()),
+        name: field("name", m.map(|m| m.name.clone()).unwrap_or_default()),
+        description: field(
+            "description",
+            m.map(|m| m.description.clone()).unwrap_or_default(),
+        ),
+        unit: field("unit", m.map(|m| m.unit.clone()).unwrap_or_default()),
+        owners: field("owners", m.map(owners).unwrap_or_default()),
+        data_source: field(
+            "data_source",
+            m.map(|m| m.data_source.clone()).unwrap_or_default(),
+        ),
+        review_cadence_months: field(
+            "review_cadence_months",
+            m.and_then(|m| m.review_cadence_months)
+                .map(|n| n.to_string())
+                .unwrap_or_default(),
+        ),
+        tags: field("tags", m.map(|m| m.tags.join(", ")).unwrap_or_default()),
+    }
+}
+
+/// The form to add a metric or edit its details, with the problems of the last try.
+#[derive(Debug, Serialize)]
+pub struct MetricForm<'a> {
+    pub action: &'a str,
+    pub cancel: &'a str,
+    /// Adding a metric (its key can be set only then).
+    pub creating: bool,
+    pub can_set_owners: bool,
+    pub submit_label: &'static str,
+    pub values: MetricFormValues,
+    pub errors: BTreeMap<String, String>,
+    pub problems: &'a [FieldProblem],
+}
+
+impl PageData for MetricForm<'_> {
+    const TEMPLATE: &'static str = "metric_form.html";
 }
 
 struct FormSpec<'a> {
@@ -47,27 +100,29 @@ struct FormSpec<'a> {
 fn metric_form(
     session: &Session,
     spec: &FormSpec<'_>,
-    values: serde_json::Value,
+    values: MetricFormValues,
     problems: &Problems,
     status: StatusCode,
 ) -> Response {
-    let mut ctx = base_context(Some(session), spec.title, "register");
-    ctx.insert("action", &spec.action);
-    ctx.insert("cancel", &spec.cancel);
-    ctx.insert("creating", &spec.creating);
-    ctx.insert("can_set_owners", &spec.can_set_owners);
-    ctx.insert(
-        "submit_label",
-        if spec.creating {
+    let data = MetricForm {
+        action: &spec.action,
+        cancel: &spec.cancel,
+        creating: spec.creating,
+        can_set_owners: spec.can_set_owners,
+        submit_label: if spec.creating {
             "Add metric"
         } else {
             "Save changes"
         },
-    );
-    ctx.insert("values", &values);
-    ctx.insert("errors", &field_errors(problems));
-    ctx.insert("problems", &problems.0);
-    render(status, "metric_form.html", &ctx)
+        values,
+        errors: field_errors(problems),
+        problems: &problems.0,
+    };
+    render(
+        status,
+        &Common::new(Some(session), spec.title, "register"),
+        &data,
+    )
 }
 
 /// Reads the cadence field: blank means none; anything but a whole number is a problem.

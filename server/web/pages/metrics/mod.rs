@@ -3,19 +3,21 @@
 
 mod form;
 
-pub use form::{create, edit, edit_form, new_form};
+pub use form::{MetricForm, MetricFormValues, create, edit, edit_form, new_form};
 
 use axum::extract::{Path, State};
 use axum::response::Response;
-use serde::Deserialize;
-use serde_json::json;
+use serde::{Deserialize, Serialize};
 
-use super::{PageQuery, base_context, page};
-use crate::domain::Metric;
+use super::evidence::MetricEvidence;
+use super::{Common, PageData, PageQuery, page};
 use crate::domain::access::Session;
-use crate::domain::{MetricKey, Role};
+use crate::domain::proposal::ProposalState;
+use crate::domain::{Metric, MetricKey, Role, Timestamp};
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, edit_permission};
+use crate::ops::proposals::ProposalView;
+use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -40,6 +42,32 @@ fn list_link(filter: &MetricFilter, page: i64) -> String {
     format!("/metrics?{query}")
 }
 
+/// The search fields as typed.
+#[derive(Debug, Serialize)]
+pub struct ListFilter<'a> {
+    pub text: &'a str,
+    pub tag: &'a str,
+    pub owner: &'a str,
+}
+
+/// A page of the register, the search that chose it, and links to the pages either side.
+#[derive(Debug, Serialize)]
+pub struct MetricList<'a> {
+    pub metrics: &'a [Metric],
+    /// Metrics matching in all.
+    pub total: i64,
+    pub page: i64,
+    pub pages: i64,
+    pub searching: bool,
+    pub filter: ListFilter<'a>,
+    pub prev_link: Option<String>,
+    pub next_link: Option<String>,
+}
+
+impl PageData for MetricList<'_> {
+    const TEMPLATE: &'static str = "metrics_list.html";
+}
+
 pub async fn list(
     State(state): State<AppState>,
     PageSession(session): PageSession,
@@ -53,28 +81,22 @@ pub async fn list(
     let page_no = query.page.trim().parse::<i64>().unwrap_or(1).max(1);
     let found = metrics::list(&state.store, &filter, page_no, metrics::PER_PAGE_DEFAULT).await?;
     let pages = ((found.total + found.per_page - 1) / found.per_page).max(1);
-    let mut ctx = base_context(Some(&session), "Metric register", "register");
-    ctx.insert("metrics", &found.metrics);
-    ctx.insert("total", &found.total);
-    ctx.insert("page", &found.page);
-    ctx.insert("pages", &pages);
-    ctx.insert(
-        "searching",
-        &!(filter.text.is_empty() && filter.tag.is_empty() && filter.owner.is_empty()),
-    );
-    ctx.insert(
-        "filter",
-        &json!({"text": filter.text, "tag": filter.tag, "owner": filter.owner}),
-    );
-    ctx.insert(
-        "prev_link",
-        &(found.page > 1).then(|| list_link(&filter, found.page - 1)),
-    );
-    ctx.insert(
-        "next_link",
-        &(found.page < pages).then(|| list_link(&filter, found.page + 1)),
-    );
-    Ok(page("metrics_list.html", &ctx))
+    let data = MetricList {
+        metrics: &found.metrics,
+        total: found.total,
+        page: found.page,
+        pages,
+        searching: !(filter.text.is_empty() && filter.tag.is_empty() && filter.owner.is_empty()),
+        filter: ListFilter {
+            text: &filter.text,
+            tag: &filter.tag,
+            owner: &filter.owner,
+        },
+        prev_link: (found.page > 1).then(|| list_link(&filter, found.page - 1)),
+        next_link: (found.page < pages).then(|| list_link(&filter, found.page + 1)),
+    };
+    let common = Common::new(Some(&session), "Metric register", "register");
+    Ok(page(&common, &data))
 }
 
 fn parse_key(key: &str) -> Result<MetricKey, PageError> {
@@ -90,6 +112,43 @@ pub struct SavedQuery {
     /// The evidence window.
     from: String,
     to: String,
+}
+
+/// A proposal of the metric that is closed, as its page lists it.
+#[derive(Debug, Serialize)]
+pub struct ClosedProposal {
+    pub id: i64,
+    pub state: ProposalState,
+    pub updated_at: Timestamp,
+    /// The version it became, if it was approved.
+    pub version: Option<i64>,
+}
+
+/// A metric's page: its details, thresholds (in force, scheduled, history), the open proposal,
+/// the evidence, and what the reader may do.
+#[derive(Debug, Serialize)]
+pub struct MetricDetail<'a> {
+    #[serde(flatten)]
+    pub shown: MetricEvidence<'a>,
+    pub can_edit: bool,
+    pub can_propose: bool,
+    pub can_upload: bool,
+    /// What was just saved or uploaded.
+    pub saved: Option<&'static str>,
+    pub uploaded: Option<String>,
+    pub in_force: Option<&'a VersionView>,
+    pub in_force_cut_names: Vec<&'static str>,
+    pub scheduled: Option<&'a VersionView>,
+    /// Newest first.
+    pub history: Vec<&'a VersionView>,
+    pub open: Option<&'a ProposalView>,
+    pub closed_proposals: Vec<ClosedProposal>,
+    /// The zone strip (SVG): the version in force, the scheduled one and the open proposal.
+    pub strip: String,
+}
+
+impl PageData for MetricDetail<'_> {
+    const TEMPLATE: &'static str = "metric_detail.html";
 }
 
 pub async fn detail(
@@ -160,30 +219,6 @@ pub async fn detail(
     };
     let can_propose =
         open.is_none() && crate::ops::proposals::may_propose(&session.user, &metric).is_ok();
-    let mut ctx = base_context(Some(&session), &metric.name, "register");
-    ctx.insert("can_edit", &may_edit(&session, &metric));
-    ctx.insert("can_propose", &can_propose);
-    ctx.insert("saved", &saved);
-    ctx.insert("metric", &metric);
-    ctx.insert("in_force", &in_force);
-    ctx.insert(
-        "in_force_cut_names",
-        &in_force
-            .map(|v| v.record.content.direction().cut_names().to_vec())
-            .unwrap_or_default(),
-    );
-    ctx.insert("scheduled", &scheduled);
-    ctx.insert("history", &history.iter().rev().collect::<Vec<_>>());
-    ctx.insert("open", &open_view);
-    ctx.insert(
-        "closed_proposals",
-        &proposals
-            .iter()
-            .filter(|p| !p.state.is_open())
-            .map(|p| json!({"id": p.id, "state": p.state, "updated_at": p.updated_at, "version": p.version_number}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert("strip", &strip);
     let (window, window_problem) = super::evidence::window(&query.from, &query.to);
     let evidence_history =
         crate::ops::evidence::history(&state.store, metric.clone(), window).await?;
@@ -198,13 +233,39 @@ pub async fn detail(
         window_problem,
     })
     .await?;
-    ctx.insert("evidence", &evidence);
-    ctx.insert(
-        "can_upload",
-        &(session.user.roles.has(Role::Admin) || metric.is_owner(&session.user.username)),
-    );
-    ctx.insert("uploaded", &uploaded);
-    Ok(page("metric_detail.html", &ctx))
+    let data = MetricDetail {
+        shown: MetricEvidence {
+            metric: &metric,
+            evidence: &evidence,
+        },
+        can_edit: may_edit(&session, &metric),
+        can_propose,
+        can_upload: session.user.roles.has(Role::Admin) || metric.is_owner(&session.user.username),
+        saved,
+        uploaded,
+        in_force,
+        in_force_cut_names: in_force
+            .map(|v| v.record.content.direction().cut_names().to_vec())
+            .unwrap_or_default(),
+        scheduled,
+        history: history.iter().rev().collect(),
+        open: open_view.as_ref(),
+        closed_proposals: proposals
+            .iter()
+            .filter(|p| !p.state.is_open())
+            .map(|p| ClosedProposal {
+                id: p.id,
+                state: p.state,
+                updated_at: p.updated_at,
+                version: p.version_number,
+            })
+            .collect(),
+        strip,
+    };
+    Ok(page(
+        &Common::new(Some(&session), metric.name.as_str(), "register"),
+        &data,
+    ))
 }
 
 fn may_edit(session: &Session, metric: &Metric) -> bool {
