@@ -8,6 +8,8 @@ pub mod evidence;
 pub mod metrics;
 pub mod proposals;
 pub mod published;
+#[doc(hidden)]
+pub mod samples;
 pub mod signin;
 
 use std::collections::BTreeMap;
