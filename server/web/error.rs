@@ -4,8 +4,10 @@
 use axum::Json;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{Html, IntoResponse, Response};
+use serde::Serialize;
 use serde_json::json;
 
+use super::layout::{Common, PageData, render};
 use crate::domain::Problems;
 use crate::ops::OpError;
 
@@ -196,6 +198,17 @@ impl IntoResponse for PageError {
     }
 }
 
+/// The error page's data: a heading for the kind of error and the message the API would give.
+#[derive(Debug, Serialize)]
+pub struct ErrorPage<'a> {
+    pub heading: &'a str,
+    pub message: &'a str,
+}
+
+impl PageData for ErrorPage<'_> {
+    const TEMPLATE: &'static str = "error.html";
+}
+
 /// The page for an error, with the same status and message the API would give.
 pub fn error_page(err: &ApiError) -> Response {
     let heading = match err.status {
@@ -211,10 +224,11 @@ pub fn error_page(err: &ApiError) -> Response {
         StatusCode::SERVICE_UNAVAILABLE => "The database is not answering",
         _ => "Something went wrong",
     };
-    let mut ctx = super::layout::base_context(None, heading, "");
-    ctx.insert("heading", heading);
-    ctx.insert("message", &err.message);
-    let mut response = match super::templates::render("error.html", &ctx) {
+    let page = ErrorPage {
+        heading,
+        message: &err.message,
+    };
+    let mut response = match render(&Common::new(None, heading, ""), &page) {
         Ok(body) => (err.status, Html(body)).into_response(),
         // The error page itself failed: fall back to plain words rather than loop.
         Err(_) => (err.status, Html(format!("<h1>{heading}</h1>"))).into_response(),

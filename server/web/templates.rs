@@ -1,5 +1,6 @@
 //! The page templates, compiled into the binary and parsed once.
 
+use std::collections::BTreeSet;
 use std::sync::LazyLock;
 
 use tera::{Context, Kwargs, State, Tera};
@@ -64,6 +65,22 @@ static TERA: LazyLock<Tera> = LazyLock::new(|| {
 /// Parses the templates now, so a broken one stops the server at start-up, not at a request.
 pub fn load() {
     LazyLock::force(&TERA);
+}
+
+/// The names of every template, in the order they are listed above.
+pub fn names() -> impl Iterator<Item = &'static str> {
+    TEMPLATES.iter().map(|(name, _)| *name)
+}
+
+/// The names a template reads from its context, with those of the layout it extends and the
+/// templates it includes, whatever branch they sit in (loop and `set` variables are not
+/// counted): for checking its data supplies each one (tests/suite/page_templates.rs).
+pub fn variables(name: &str) -> Result<BTreeSet<String>, tera::Error> {
+    Ok(TERA
+        .get_template_variables(name)?
+        .into_iter()
+        .map(str::to_string)
+        .collect())
 }
 
 /// Renders a template; a failure here is a bug in a template and is logged.

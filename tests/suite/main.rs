@@ -26,6 +26,7 @@ mod history_chart;
 mod open_redirect;
 mod openapi;
 mod outages;
+mod page_templates;
 mod pages;
 mod pg_cluster;
 mod platform;

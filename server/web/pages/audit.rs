@@ -3,16 +3,27 @@
 
 use axum::extract::{Path, State};
 use axum::response::Response;
-use serde_json::json;
+use serde::Serialize;
 
-use super::{PageQuery, base_context, page};
-use crate::domain::{MetricKey, Timestamp};
-use crate::ops::audit;
+use super::{Common, PageData, PageQuery, page};
+use crate::domain::{Metric, MetricKey, Timestamp};
+use crate::ops::audit::{self, AsOf, Exceptions, Extract, Timeline, Verification};
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::web::AppState;
 use crate::web::api::audit::{AsOfQuery, ExtractQuery};
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
+
+/// The audit overview: the chain's verification and a link to each metric's timeline.
+#[derive(Debug, Serialize)]
+pub struct AuditIndex<'a> {
+    pub v: &'a Verification,
+    pub metrics: &'a [Metric],
+}
+
+impl PageData for AuditIndex<'_> {
+    const TEMPLATE: &'static str = "audit_index.html";
+}
 
 pub async fn index(
     State(state): State<AppState>,
@@ -26,10 +37,21 @@ pub async fn index(
         metrics::PER_PAGE_MAX,
     )
     .await?;
-    let mut ctx = base_context(Some(&session), "Audit", "audit");
-    ctx.insert("v", &verification);
-    ctx.insert("metrics", &found.metrics);
-    Ok(page("audit_index.html", &ctx))
+    let data = AuditIndex {
+        v: &verification,
+        metrics: &found.metrics,
+    };
+    Ok(page(&Common::new(Some(&session), "Audit", "audit"), &data))
+}
+
+/// Why a metric's thresholds moved: its versions with the discussion behind each.
+#[derive(Debug, Serialize)]
+pub struct TimelinePage<'a> {
+    pub t: &'a Timeline,
+}
+
+impl PageData for TimelinePage<'_> {
+    const TEMPLATE: &'static str = "audit_timeline.html";
 }
 
 pub async fn timeline(
@@ -39,9 +61,8 @@ pub async fn timeline(
 ) -> Result<Response, PageError> {
     let key = MetricKey::parse(&key).map_err(|e| PageError(ApiError::not_found(e.to_string())))?;
     let t = audit::timeline(&state.store, &session.user, key.as_str()).await?;
-    let mut ctx = base_context(Some(&session), &format!("Why {} moved", t.name), "audit");
-    ctx.insert("t", &t);
-    Ok(page("audit_timeline.html", &ctx))
+    let common = Common::new(Some(&session), format!("Why {} moved", t.name), "audit");
+    Ok(page(&common, &TimelinePage { t: &t }))
 }
 
 fn time_or_error(name: &str, text: &str) -> Result<Option<Timestamp>, String> {
@@ -54,32 +75,65 @@ fn time_or_error(name: &str, text: &str) -> Result<Option<Timestamp>, String> {
     }
 }
 
+/// The fields of the as-of form, as typed.
+#[derive(Debug, Serialize)]
+pub struct AsOfFields<'a> {
+    pub as_of: &'a str,
+    pub known_at: &'a str,
+    pub metric: &'a str,
+}
+
+/// What was in force at a time, as recorded by a time; or why the times could not be read.
+#[derive(Debug, Serialize)]
+pub struct AsOfPage<'a> {
+    pub view: Option<&'a AsOf>,
+    pub error: Option<String>,
+    pub q: AsOfFields<'a>,
+}
+
+impl PageData for AsOfPage<'_> {
+    const TEMPLATE: &'static str = "audit_as_of.html";
+}
+
 pub async fn as_of(
     State(state): State<AppState>,
     PageSession(session): PageSession,
     PageQuery(q): PageQuery<AsOfQuery>,
 ) -> Result<Response, PageError> {
-    let mut ctx = base_context(Some(&session), "What was in force", "audit");
     let parsed = time_or_error("as_of", &q.as_of)
         .and_then(|a| Ok((a, time_or_error("known_at", &q.known_at)?)));
     let key = Some(q.metric.trim()).filter(|k| !k.is_empty());
-    match parsed {
-        Ok((as_of, known_at)) => {
-            let view = audit::as_of(&state.store, &session.user, as_of, known_at, key).await?;
-            ctx.insert("view", &view);
-            ctx.insert("error", &None::<String>);
-        }
+    let (view, error) = match parsed {
+        Ok((as_of, known_at)) => (
+            Some(audit::as_of(&state.store, &session.user, as_of, known_at, key).await?),
+            None,
+        ),
         Err(e) => {
             audit::require_auditor(&session.user)?;
-            ctx.insert("view", &None::<()>);
-            ctx.insert("error", &Some(e));
+            (None, Some(e))
         }
-    }
-    ctx.insert(
-        "q",
-        &json!({"as_of": q.as_of, "known_at": q.known_at, "metric": q.metric}),
-    );
-    Ok(page("audit_as_of.html", &ctx))
+    };
+    let data = AsOfPage {
+        view: view.as_ref(),
+        error,
+        q: AsOfFields {
+            as_of: &q.as_of,
+            known_at: &q.known_at,
+            metric: &q.metric,
+        },
+    };
+    let common = Common::new(Some(&session), "What was in force", "audit");
+    Ok(page(&common, &data))
+}
+
+/// The exceptions an auditor looks for.
+#[derive(Debug, Serialize)]
+pub struct ExceptionsPage<'a> {
+    pub x: &'a Exceptions,
+}
+
+impl PageData for ExceptionsPage<'_> {
+    const TEMPLATE: &'static str = "audit_exceptions.html";
 }
 
 pub async fn exceptions(
@@ -87,9 +141,38 @@ pub async fn exceptions(
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
     let x = audit::exceptions(&state.store, &session.user).await?;
-    let mut ctx = base_context(Some(&session), "Exceptions", "audit");
-    ctx.insert("x", &x);
-    Ok(page("audit_exceptions.html", &ctx))
+    let common = Common::new(Some(&session), "Exceptions", "audit");
+    Ok(page(&common, &ExceptionsPage { x: &x }))
+}
+
+/// The fields of the event record's filter, as typed.
+#[derive(Debug, Serialize)]
+pub struct EventFilterFields<'a> {
+    pub metric: &'a str,
+    pub actor: &'a str,
+    pub action: &'a str,
+    pub from: &'a str,
+    pub to: &'a str,
+}
+
+/// An event of the record with its payload as canonical JSON text.
+#[derive(Debug, Serialize)]
+pub struct EventRow<'a> {
+    pub e: &'a crate::audit::Entry,
+    pub payload: String,
+}
+
+/// A page of the event record, its filter, and the query that downloads the same events.
+#[derive(Debug, Serialize)]
+pub struct EventsPage<'a> {
+    pub x: &'a Extract,
+    pub q: EventFilterFields<'a>,
+    pub query: String,
+    pub entries: Vec<EventRow<'a>>,
+}
+
+impl PageData for EventsPage<'_> {
+    const TEMPLATE: &'static str = "audit_events.html";
 }
 
 pub async fn events(
@@ -97,7 +180,6 @@ pub async fn events(
     PageSession(session): PageSession,
     PageQuery(q): PageQuery<ExtractQuery>,
 ) -> Result<Response, PageError> {
-    let mut ctx = base_context(Some(&session), "Event record", "audit");
     let filter = q.filter(100).map_err(PageError)?;
     let x = audit::extract(&state.store, &session.user, &filter).await?;
     let query = serde_urlencoded::to_string([
@@ -108,15 +190,28 @@ pub async fn events(
         ("to", q.to.as_str()),
     ])
     .unwrap_or_default();
-    ctx.insert("x", &x);
-    ctx.insert("q", &json!({"metric": q.metric, "actor": q.actor, "action": q.action, "from": q.from, "to": q.to}));
-    ctx.insert("query", &query);
-    ctx.insert(
-        "entries",
-        &x.entries
-            .iter()
-            .map(|e| json!({"e": e, "payload": serde_json_canonicalizer::to_string(&e.event.payload).unwrap_or_default()}))
-            .collect::<Vec<_>>(),
-    );
-    Ok(page("audit_events.html", &ctx))
+    let entries = x
+        .entries
+        .iter()
+        .map(|e| EventRow {
+            e,
+            payload: serde_json_canonicalizer::to_string(&e.event.payload).unwrap_or_default(),
+        })
+        .collect();
+    let data = EventsPage {
+        x: &x,
+        q: EventFilterFields {
+            metric: &q.metric,
+            actor: &q.actor,
+            action: &q.action,
+            from: &q.from,
+            to: &q.to,
+        },
+        query,
+        entries,
+    };
+    Ok(page(
+        &Common::new(Some(&session), "Event record", "audit"),
+        &data,
+    ))
 }

@@ -5,12 +5,13 @@
 use axum::extract::{Multipart, Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
-use serde_json::{Value, json};
+use serde::Serialize;
 
+use super::{Common, PageData};
 use crate::charts::history::{Bands, HistoryChart, LimitLines, history_chart};
 use crate::domain::observations::Mode;
 use crate::domain::thresholds::{CutSet, Shades};
-use crate::domain::{MetricKey, number};
+use crate::domain::{Metric, MetricKey, number};
 use crate::engine::warnings::{DEFAULT_CRITICAL_SHARE, percent, round_for_text};
 use crate::ops::evidence::{self, History};
 use crate::ops::uploads::{self, Format, Uploader};
@@ -54,7 +55,7 @@ pub struct SectionInput {
 }
 
 /// [`section`] on the blocking pool.
-pub async fn section_off_thread(input: SectionInput) -> Result<Value, PageError> {
+pub async fn section_off_thread(input: SectionInput) -> Result<EvidenceSection, PageError> {
     tokio::task::spawn_blocking(move || {
         section(
             "evidence",
@@ -101,7 +102,116 @@ pub fn window(from: &str, to: &str) -> (evidence::Window, Option<String>) {
 /// How many differing periods the page lists before saying how many more there are.
 const DIFFERENCES_SHOWN: usize = 12;
 
-/// The section's context. `judged` is the cut set the warnings are about (the proposal on a
+/// The section's data, as `evidence.html` reads it under `evidence`.
+#[derive(Debug, Serialize)]
+pub struct EvidenceSection {
+    pub window: WindowFields,
+    /// The history chart (SVG).
+    pub chart: String,
+    /// Periods in the window.
+    pub count: usize,
+    /// The first and last periods' dates.
+    pub first: Option<String>,
+    pub last: Option<String>,
+    pub summary: Option<SummaryFigures>,
+    pub limits: Option<LimitFigures>,
+    pub backtests: Vec<BacktestRow>,
+    /// The reviewer's warnings about the judged cut set.
+    pub warnings: Vec<String>,
+    /// The caption of the cut set the warnings are about.
+    pub judged: Option<String>,
+    pub labels: SideLabels,
+    /// Where the version in force and the proposal disagree; none unless both are shown.
+    pub differences: Option<Differences>,
+}
+
+/// The window as its form shows it: dates, whether one was chosen, and why it was not used.
+#[derive(Debug, Serialize)]
+pub struct WindowFields {
+    pub from: String,
+    pub to: String,
+    pub chosen: bool,
+    pub problem: Option<String>,
+}
+
+/// The history's statistics, as text.
+#[derive(Debug, Serialize)]
+pub struct SummaryFigures {
+    pub count: usize,
+    pub mean: String,
+    pub sd: Option<String>,
+    pub min: String,
+    pub max: String,
+    pub p10: String,
+    pub p50: String,
+    pub p90: String,
+}
+
+/// The natural process limits, as text.
+#[derive(Debug, Serialize)]
+pub struct LimitFigures {
+    pub lower: String,
+    pub upper: String,
+    pub mean: String,
+    pub average_moving_range: String,
+    /// Worked out from enough periods to go by.
+    pub dependable: bool,
+}
+
+/// What one cut set would have said over the history.
+#[derive(Debug, Serialize)]
+pub struct BacktestRow {
+    pub caption: String,
+    pub zones: Vec<ZoneCount>,
+    /// How often the status would have changed.
+    pub changes: usize,
+}
+
+/// Periods in one zone, and their share as words ("25 %").
+#[derive(Clone, Debug, Serialize)]
+pub struct ZoneCount {
+    pub name: &'static str,
+    pub count: usize,
+    pub share: String,
+}
+
+/// The short names of the two cut sets compared ("in force", "proposed").
+#[derive(Debug, Serialize)]
+pub struct SideLabels {
+    pub first: &'static str,
+    pub second: &'static str,
+}
+
+/// The periods whose zone would change: how many, the first few, and how many more.
+#[derive(Debug, Serialize)]
+pub struct Differences {
+    pub count: usize,
+    pub shown: Vec<DifferenceRow>,
+    pub more: usize,
+}
+
+/// A period whose zone differs between the two cut sets.
+#[derive(Debug, Serialize)]
+pub struct DifferenceRow {
+    pub period: String,
+    pub value: String,
+    pub first: String,
+    pub second: String,
+}
+
+/// The metric and its evidence section: what `evidence.html` reads. Each page that includes
+/// it flattens this into its own data.
+#[derive(Clone, Copy, Debug, Serialize)]
+pub struct MetricEvidence<'a> {
+    pub metric: &'a Metric,
+    pub evidence: &'a EvidenceSection,
+}
+
+impl PageData for MetricEvidence<'_> {
+    const TEMPLATE: &'static str = "evidence.html";
+}
+
+/// The section's data. `judged` is the cut set the warnings are about (the proposal on a
 /// proposal page, the version in force on a metric page).
 pub fn section(
     id_prefix: &str,
@@ -111,7 +221,7 @@ pub fn section(
     in_force: Option<&Shown>,
     proposal: Option<&Shown>,
     window: (&evidence::Window, Option<String>),
-) -> Value {
+) -> EvidenceSection {
     let points = history.points();
     let chart = history_chart(&HistoryChart {
         id_prefix,
@@ -134,31 +244,27 @@ pub fn section(
             upper: l.upper,
         }),
     });
-    let summary = history.summary.map(|s| {
-        json!({
-            "count": s.count,
-            "mean": num(s.mean),
-            "sd": s.sd.map(num),
-            "min": num(s.min),
-            "max": num(s.max),
-            "p10": num(s.percentiles.p10),
-            "p50": num(s.percentiles.p50),
-            "p90": num(s.percentiles.p90),
-        })
+    let summary = history.summary.map(|s| SummaryFigures {
+        count: s.count,
+        mean: num(s.mean),
+        sd: s.sd.map(num),
+        min: num(s.min),
+        max: num(s.max),
+        p10: num(s.percentiles.p10),
+        p50: num(s.percentiles.p50),
+        p90: num(s.percentiles.p90),
     });
-    let limits = history.limits.map(|l| {
-        json!({
-            "lower": num(l.lower),
-            "upper": num(l.upper),
-            "mean": num(l.mean),
-            "average_moving_range": num(l.average_moving_range),
-            "dependable": l.baseline_count >= crate::engine::stats::LIMITS_MIN_POINTS,
-        })
+    let limits = history.limits.map(|l| LimitFigures {
+        lower: num(l.lower),
+        upper: num(l.upper),
+        mean: num(l.mean),
+        average_moving_range: num(l.average_moving_range),
+        dependable: l.baseline_count >= crate::engine::stats::LIMITS_MIN_POINTS,
     });
     let judged = proposal.or(in_force);
     let values = history.values();
     let mut warnings: Vec<String> = Vec::new();
-    let backtests: Vec<Value> = [in_force, proposal]
+    let backtests: Vec<BacktestRow> = [in_force, proposal]
         .into_iter()
         .flatten()
         .map(|s| {
@@ -174,61 +280,79 @@ pub fn section(
                 .map(|w| w.message)
                 .collect();
             }
-            let zones: Vec<Value> = crate::engine::backtest::zones_of(s.cuts.direction())
+            let zones = crate::engine::backtest::zones_of(s.cuts.direction())
                 .iter()
-                .map(|z| {
-                    json!({
-                        "name": z.as_str(),
-                        "count": bt.zones[z.as_str()],
-                        "share": percent(bt.zone_shares[z.as_str()]),
-                    })
+                .map(|z| ZoneCount {
+                    name: z.as_str(),
+                    count: bt.zones[z.as_str()],
+                    share: percent(bt.zone_shares[z.as_str()]),
                 })
                 .collect();
-            json!({"caption": s.caption, "zones": zones, "changes": bt.changes})
+            BacktestRow {
+                caption: s.caption.clone(),
+                zones,
+                changes: bt.changes,
+            }
         })
         .collect();
     let differences = match (in_force, proposal) {
         (Some(a), Some(b)) => {
             let all = evidence::differences((&a.cuts, a.shades), (&b.cuts, b.shades), history);
-            json!({
-                "count": all.len(),
-                "shown": all.iter().take(DIFFERENCES_SHOWN).map(|d| json!({
-                    "period": d.period_start.as_datetime().format("%Y-%m-%d").to_string(),
-                    "value": number::format(d.value),
-                    "first": d.first,
-                    "second": d.second,
-                })).collect::<Vec<_>>(),
-                "more": all.len().saturating_sub(DIFFERENCES_SHOWN),
+            Some(Differences {
+                count: all.len(),
+                shown: all
+                    .iter()
+                    .take(DIFFERENCES_SHOWN)
+                    .map(|d| DifferenceRow {
+                        period: d.period_start.as_datetime().format("%Y-%m-%d").to_string(),
+                        value: number::format(d.value),
+                        first: d.first.clone(),
+                        second: d.second.clone(),
+                    })
+                    .collect(),
+                more: all.len().saturating_sub(DIFFERENCES_SHOWN),
             })
         }
-        _ => Value::Null,
+        _ => None,
     };
     let date = |t: Option<crate::domain::Timestamp>| {
         t.map(|t| t.as_datetime().format("%Y-%m-%d").to_string())
             .unwrap_or_default()
     };
-    json!({
-        "window": {
-            "from": date(window.0.from),
-            "to": date(window.0.to),
-            "chosen": window.0.from.is_some() || window.0.to.is_some(),
-            "problem": window.1,
+    EvidenceSection {
+        window: WindowFields {
+            from: date(window.0.from),
+            to: date(window.0.to),
+            chosen: window.0.from.is_some() || window.0.to.is_some(),
+            problem: window.1,
         },
-        "chart": chart,
-        "count": history.points.len(),
-        "first": history.points.first().map(|o| date(Some(o.period_start))),
-        "last": history.points.last().map(|o| date(Some(o.period_start))),
-        "summary": summary,
-        "limits": limits,
-        "backtests": backtests,
-        "warnings": warnings,
-        "judged": judged.map(|s| s.caption.clone()),
-        "labels": {
-            "first": in_force.map_or("in force", |s| s.short),
-            "second": proposal.map_or("proposed", |s| s.short),
+        chart,
+        count: history.points.len(),
+        first: history.points.first().map(|o| date(Some(o.period_start))),
+        last: history.points.last().map(|o| date(Some(o.period_start))),
+        summary,
+        limits,
+        backtests,
+        warnings,
+        judged: judged.map(|s| s.caption.clone()),
+        labels: SideLabels {
+            first: in_force.map_or("in force", |s| s.short),
+            second: proposal.map_or("proposed", |s| s.short),
         },
-        "differences": differences,
-    })
+        differences,
+    }
+}
+
+/// The upload form's answer when lines of the file are bad: each problem, and the metric to
+/// go back to.
+#[derive(Debug, Serialize)]
+pub struct UploadRefused<'a> {
+    pub key: &'a MetricKey,
+    pub problems: Vec<String>,
+}
+
+impl PageData for UploadRefused<'_> {
+    const TEMPLATE: &'static str = "observations_refused.html";
 }
 
 /// `POST /metrics/{key}/observations`: the upload form (a CSV file and a mode). Its CSRF
@@ -305,17 +429,12 @@ pub async fn upload(
         ))
         .into_response()),
         Err(crate::ops::OpError::InvalidRows(rows)) => {
-            let mut ctx = super::base_context(Some(&session), "Upload refused", "register");
-            ctx.insert("key", &key);
-            ctx.insert(
-                "problems",
-                &rows.iter().map(|r| r.describe()).collect::<Vec<_>>(),
-            );
-            Ok(super::render(
-                StatusCode::BAD_REQUEST,
-                "observations_refused.html",
-                &ctx,
-            ))
+            let data = UploadRefused {
+                key: &key,
+                problems: rows.iter().map(|r| r.describe()).collect(),
+            };
+            let common = Common::new(Some(&session), "Upload refused", "register");
+            Ok(super::render(StatusCode::BAD_REQUEST, &common, &data))
         }
         Err(e) => Err(e.into()),
     }

@@ -1,5 +1,6 @@
-//! Server-rendered pages. Each handler builds a context and names a template; forms post
-//! back to the same place and are re-shown with a message beside each field that failed.
+//! Server-rendered pages. Each handler fills its page's data (a struct naming its template,
+//! [`PageData`]) and renders it with the common part ([`Common`]); forms post back to the same
+//! place and are re-shown with a message beside each field that failed.
 
 pub mod admin;
 pub mod audit;
@@ -7,6 +8,8 @@ pub mod evidence;
 pub mod metrics;
 pub mod proposals;
 pub mod published;
+#[doc(hidden)]
+pub mod samples;
 pub mod signin;
 
 use std::collections::BTreeMap;
@@ -15,24 +18,23 @@ use axum::body::Bytes;
 use axum::extract::{FromRequest, Request};
 use axum::http::StatusCode;
 use axum::response::{Html, IntoResponse, Response};
-use tera::Context;
 
 use super::AppState;
 use super::error::{ApiError, PageError, error_page};
-pub use super::layout::base_context;
-use super::templates;
+pub use super::layout::{Common, PageData};
 use crate::domain::Problems;
 
-/// Renders a page with a status.
-pub fn render(status: StatusCode, name: &str, ctx: &Context) -> Response {
-    match templates::render(name, ctx) {
+/// Renders a page with a status; a page that fails to render becomes the error page.
+pub fn render<P: PageData>(status: StatusCode, common: &Common<'_>, data: &P) -> Response {
+    match super::layout::render(common, data) {
         Ok(body) => (status, Html(body)).into_response(),
         Err(_) => error_page(&ApiError::internal()),
     }
 }
 
-pub fn page(name: &str, ctx: &Context) -> Response {
-    render(StatusCode::OK, name, ctx)
+/// Renders a page with 200 OK.
+pub fn page<P: PageData>(common: &Common<'_>, data: &P) -> Response {
+    render(StatusCode::OK, common, data)
 }
 
 /// A posted form as its fields in order (repeated names, like checkboxes, are kept).

@@ -7,13 +7,14 @@ use axum::response::Response;
 use base64::Engine;
 use base64::engine::general_purpose::URL_SAFE_NO_PAD;
 use ed25519_dalek::Verifier as _;
-use serde::Deserialize;
-use serde_json::{Value, json};
+use serde::{Deserialize, Serialize};
+use serde_json::Value;
 
-use super::{PageQuery, base_context, page};
+use super::{Common, PageData, PageQuery, page};
 use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Timestamp;
 use crate::domain::thresholds::{CutSet, Direction};
+use crate::ops::publication::Change;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -24,6 +25,34 @@ pub struct SetQuery {
     as_of: String,
     from: String,
     to: String,
+}
+
+/// A metric of the published set: its entry in the document, its cut points in order as words
+/// ("critical 50, intervene 70, ...") and its zone strip.
+#[derive(Debug, Serialize)]
+pub struct PublishedMetric<'a> {
+    pub key: &'a str,
+    pub e: &'a Value,
+    pub cuts: String,
+    pub strip: String,
+}
+
+/// The published set at a time: the document's meta, each metric, and whether the signature
+/// verifies.
+#[derive(Debug, Serialize)]
+pub struct PublishedPage<'a> {
+    pub meta: &'a Value,
+    pub metrics: Vec<PublishedMetric<'a>>,
+    pub signature: String,
+    /// The query that downloads the same set (empty for now).
+    pub query: String,
+    pub as_of: &'a str,
+    /// Versions left out for not matching their approval are for those who look into it.
+    pub show_withheld: bool,
+}
+
+impl PageData for PublishedPage<'_> {
+    const TEMPLATE: &'static str = "published.html";
 }
 
 /// Checks a document's signature against the registered public key it names.
@@ -119,8 +148,12 @@ pub async fn set(
                     )
                 })
                 .collect();
-            metrics
-                .push(json!({"key": key, "e": entry, "cuts": ordered.join(", "), "strip": strip}));
+            metrics.push(PublishedMetric {
+                key,
+                e: entry,
+                cuts: ordered.join(", "),
+                strip,
+            });
         }
     }
     let query = if q.as_of.trim().is_empty() {
@@ -128,20 +161,35 @@ pub async fn set(
     } else {
         serde_urlencoded::to_string([("as_of", q.as_of.as_str())]).unwrap_or_default()
     };
-    let mut ctx = base_context(Some(&session), "Published set", "published");
-    ctx.insert("meta", &doc["meta"]);
-    ctx.insert("metrics", &metrics);
-    ctx.insert("signature", &signature_status(&state, doc).await?);
-    ctx.insert("query", &query);
-    ctx.insert("as_of", &q.as_of);
-    ctx.insert("etag", &r.json_etag);
-    // Versions left out for not matching their approval are for those who look into it.
     let roles = &session.user.roles;
-    ctx.insert(
-        "show_withheld",
-        &(roles.has(crate::domain::Role::Admin) || roles.has(crate::domain::Role::Auditor)),
-    );
-    Ok(page("published.html", &ctx))
+    let data = PublishedPage {
+        meta: &doc["meta"],
+        metrics,
+        signature: signature_status(&state, doc).await?,
+        query,
+        as_of: &q.as_of,
+        show_withheld: roles.has(crate::domain::Role::Admin)
+            || roles.has(crate::domain::Role::Auditor),
+    };
+    Ok(page(
+        &Common::new(Some(&session), "Published set", "published"),
+        &data,
+    ))
+}
+
+/// The changes between two set revisions, the revisions as typed, and the current one.
+#[derive(Debug, Serialize)]
+pub struct ChangesPage<'a> {
+    pub current: i64,
+    pub from: &'a str,
+    pub to: &'a str,
+    /// None until two revisions are chosen (or when they cannot be compared).
+    pub changes: Option<Vec<Change>>,
+    pub error: Option<String>,
+}
+
+impl PageData for ChangesPage<'_> {
+    const TEMPLATE: &'static str = "published_changes.html";
 }
 
 pub async fn changes(
@@ -154,29 +202,26 @@ pub async fn changes(
         .set_revision;
     let from = q.from.trim().parse::<i64>().ok();
     let to = q.to.trim().parse::<i64>().ok();
-    let mut ctx = base_context(Some(&session), "Changes between set revisions", "published");
-    ctx.insert("current", &current);
-    ctx.insert("from", &q.from);
-    ctx.insert("to", &q.to);
-    match (from, to) {
-        (Some(f), Some(t)) if 0 <= f && f <= t && t <= current => {
-            let list = crate::ops::publication::changes(&state.store, f, t).await?;
-            ctx.insert("changes", &list);
-            ctx.insert("error", &None::<String>);
-        }
-        (None, None) if q.from.is_empty() && q.to.is_empty() => {
-            ctx.insert("changes", &None::<()>);
-            ctx.insert("error", &None::<String>);
-        }
-        _ => {
-            ctx.insert("changes", &None::<()>);
-            ctx.insert(
-                "error",
-                &Some(format!(
-                    "choose revisions with 0 <= from <= to <= {current}"
-                )),
-            );
-        }
-    }
-    Ok(page("published_changes.html", &ctx))
+    let (changes, error) = match (from, to) {
+        (Some(f), Some(t)) if 0 <= f && f <= t && t <= current => (
+            Some(crate::ops::publication::changes(&state.store, f, t).await?),
+            None,
+        ),
+        (None, None) if q.from.is_empty() && q.to.is_empty() => (None, None),
+        _ => (
+            None,
+            Some(format!(
+                "choose revisions with 0 <= from <= to <= {current}"
+            )),
+        ),
+    };
+    let data = ChangesPage {
+        current,
+        from: &q.from,
+        to: &q.to,
+        changes,
+        error,
+    };
+    let common = Common::new(Some(&session), "Changes between set revisions", "published");
+    Ok(page(&common, &data))
 }

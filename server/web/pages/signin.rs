@@ -3,9 +3,9 @@
 use axum::extract::{RawQuery, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Redirect, Response};
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 
-use super::{FormFields, base_context, render};
+use super::{Common, FormFields, PageData, render};
 use crate::domain::text;
 use crate::ops::OpError;
 use crate::ops::access;
@@ -38,6 +38,18 @@ fn next_param(query: Option<&str>) -> String {
     safe_next(&query.next).to_string()
 }
 
+/// The sign-in form: where it leads after, the username typed, and why the last try failed.
+#[derive(Debug, Serialize)]
+pub struct SigninPage<'a> {
+    pub next: &'a str,
+    pub username: &'a str,
+    pub error: Option<&'a str>,
+}
+
+impl PageData for SigninPage<'_> {
+    const TEMPLATE: &'static str = "signin.html";
+}
+
 fn signin_form(
     csrf: &str,
     next: &str,
@@ -45,12 +57,17 @@ fn signin_form(
     error: Option<&str>,
     status: StatusCode,
 ) -> Response {
-    let mut ctx = base_context(None, "Sign in", "signin");
-    ctx.insert("csrf", csrf);
-    ctx.insert("next", next);
-    ctx.insert("username", username);
-    ctx.insert("error", &error);
-    render(status, "signin.html", &ctx)
+    // Nobody is signed in yet: the form carries the sign-in cookie's own token.
+    let common = Common {
+        csrf,
+        ..Common::new(None, "Sign in", "signin")
+    };
+    let page = SigninPage {
+        next,
+        username,
+        error,
+    };
+    render(status, &common, &page)
 }
 
 pub async fn show(

@@ -6,22 +6,21 @@ use std::collections::BTreeMap;
 use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
-use serde::Deserialize;
-use serde_json::{Value, json};
+use serde::{Deserialize, Serialize};
 
 use super::{parse_id, parse_key};
 use crate::domain::Metric;
-use crate::domain::Problems;
 use crate::domain::access::Session;
 use crate::domain::proposal::ContentInput;
 use crate::domain::thresholds::Direction;
+use crate::domain::{FieldProblem, Problems};
 use crate::ops::OpError;
 use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::PageError;
-use crate::web::pages::{FormFields, PageQuery, base_context, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, PageQuery, field_errors, render};
 
 #[derive(Deserialize, Default)]
 #[serde(default)]
@@ -50,13 +49,24 @@ impl<'a> From<&'a flow::RevisionView> for Prefill<'a> {
     }
 }
 
+/// The text fields of the proposal form as shown: each cut point's by name, and the rest.
+#[derive(Debug, Serialize)]
+pub struct ProposalFormValues {
+    pub cuts: BTreeMap<&'static str, String>,
+    pub shades: String,
+    pub unit: String,
+    pub effective_from: String,
+    pub rationale: String,
+    pub note: String,
+}
+
 /// The text fields of the proposal form: what was typed, else the prefill, else defaults.
 fn form_values(
     direction: Direction,
     form: Option<&FormFields>,
     from: Option<Prefill<'_>>,
     unit: &str,
-) -> Value {
+) -> ProposalFormValues {
     let typed = |name: &str| form.map(|f| f.get(name).to_string());
     let mut cuts = BTreeMap::new();
     for name in direction.cut_names() {
@@ -67,14 +77,18 @@ fn form_values(
         cuts.insert(name, typed(name).or(stored).unwrap_or_default());
     }
     let p = from.as_ref();
-    json!({
-        "cuts": cuts,
-        "shades": typed("shades").unwrap_or_else(|| p.map_or(3, |p| p.shades).to_string()),
-        "unit": typed("unit").unwrap_or_else(|| p.map_or(unit, |p| p.unit).to_string()),
-        "effective_from": typed("effective_from").unwrap_or_else(|| p.and_then(|p| p.effective_from).map(|t| t.to_string()).unwrap_or_default()),
-        "rationale": typed("rationale").unwrap_or_else(|| p.map_or("", |p| p.rationale).to_string()),
-        "note": typed("note").unwrap_or_default(),
-    })
+    ProposalFormValues {
+        cuts,
+        shades: typed("shades").unwrap_or_else(|| p.map_or(3, |p| p.shades).to_string()),
+        unit: typed("unit").unwrap_or_else(|| p.map_or(unit, |p| p.unit).to_string()),
+        effective_from: typed("effective_from").unwrap_or_else(|| {
+            p.and_then(|p| p.effective_from)
+                .map(|t| t.to_string())
+                .unwrap_or_default()
+        }),
+        rationale: typed("rationale").unwrap_or_else(|| p.map_or("", |p| p.rationale).to_string()),
+        note: typed("note").unwrap_or_default(),
+    }
 }
 
 struct FormPage<'a> {
@@ -85,10 +99,37 @@ struct FormPage<'a> {
     revising: Option<(&'a str, i64)>,
 }
 
+/// The proposal being revised: the hash of the revision the form started from, and its id.
+#[derive(Debug, Serialize)]
+pub struct Revising<'a> {
+    pub hash: &'a str,
+    pub id: i64,
+}
+
+/// The proposal form for one direction: its cut points' fields, the values shown and the
+/// problems of the last try.
+#[derive(Debug, Serialize)]
+pub struct ProposalForm<'a> {
+    pub metric: &'a Metric,
+    pub direction: &'static str,
+    pub directions: Vec<&'static str>,
+    pub cut_names: [&'static str; 4],
+    pub action: &'a str,
+    /// None when proposing.
+    pub revising: Option<Revising<'a>>,
+    pub values: ProposalFormValues,
+    pub errors: BTreeMap<String, String>,
+    pub problems: &'a [FieldProblem],
+}
+
+impl PageData for ProposalForm<'_> {
+    const TEMPLATE: &'static str = "proposal_form.html";
+}
+
 fn proposal_form(
     session: &Session,
     spec: &FormPage<'_>,
-    values: Value,
+    values: ProposalFormValues,
     problems: &Problems,
     status: StatusCode,
 ) -> Response {
@@ -97,28 +138,22 @@ fn proposal_form(
     } else {
         "Propose thresholds"
     };
-    let mut ctx = base_context(Some(session), title, "register");
-    ctx.insert("metric", spec.metric);
-    ctx.insert("direction", spec.direction.as_str());
-    ctx.insert(
-        "directions",
-        &Direction::ALL
-            .iter()
-            .map(|d| d.as_str())
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert("cut_names", &spec.direction.cut_names());
-    ctx.insert("action", &spec.action);
-    ctx.insert(
-        "revising",
-        &spec
-            .revising
-            .map(|(hash, id)| json!({"hash": hash, "id": id})),
-    );
-    ctx.insert("values", &values);
-    ctx.insert("errors", &field_errors(problems));
-    ctx.insert("problems", &problems.0);
-    render(status, "proposal_form.html", &ctx)
+    let data = ProposalForm {
+        metric: spec.metric,
+        direction: spec.direction.as_str(),
+        directions: Direction::ALL.iter().map(|d| d.as_str()).collect(),
+        cut_names: spec.direction.cut_names(),
+        action: &spec.action,
+        revising: spec.revising.map(|(hash, id)| Revising { hash, id }),
+        values,
+        errors: field_errors(problems),
+        problems: &problems.0,
+    };
+    render(
+        status,
+        &Common::new(Some(session), title, "register"),
+        &data,
+    )
 }
 
 /// Builds the content from the form: cut fields are named after the direction's cut points.

@@ -7,16 +7,16 @@ mod form;
 mod show;
 
 pub use decide::{comment, reject, review, signoff, submit, withdraw};
-pub use form::{create, edit_form, new_form, revise};
-pub use show::{show, signoff_page, strip_for};
+pub use form::{ProposalForm, ProposalFormValues, Revising, create, edit_form, new_form, revise};
+pub use show::{ProposalPage, SignoffPage, show, signoff_page, strip_for};
 
 use axum::extract::State;
 use axum::response::Response;
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 
-use super::{base_context, page};
+use super::{Common, PageData, page};
 use crate::domain::MetricKey;
-use crate::ops::proposals as flow;
+use crate::ops::proposals::{self as flow, Inbox};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
@@ -55,12 +55,21 @@ fn done_message(done: &str) -> Option<&'static str> {
     })
 }
 
+/// What waits for the reader: to review, to sign off, and their metrics' proposals.
+#[derive(Debug, Serialize)]
+pub struct InboxPage<'a> {
+    pub inbox: &'a Inbox,
+}
+
+impl PageData for InboxPage<'_> {
+    const TEMPLATE: &'static str = "inbox.html";
+}
+
 pub async fn inbox(
     State(state): State<AppState>,
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
     let inbox = flow::inbox(&state.store, &session.user).await?;
-    let mut ctx = base_context(Some(&session), "Inbox", "inbox");
-    ctx.insert("inbox", &inbox);
-    Ok(page("inbox.html", &ctx))
+    let common = Common::new(Some(&session), "Inbox", "inbox");
+    Ok(page(&common, &InboxPage { inbox: &inbox }))
 }

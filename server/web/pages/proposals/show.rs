@@ -4,18 +4,20 @@
 use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::Response;
+use serde::Serialize;
 
 use super::{DoneQuery, done_message, parse_id};
 use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Metric;
 use crate::domain::access::Session;
 use crate::domain::thresholds::{CutSet, Direction};
-use crate::ops::proposals::{self as flow, ProposalView};
+use crate::ops::proposals::{self as flow, ProposalView, RevisionView};
 use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::PageError;
-use crate::web::pages::{PageQuery, base_context, render};
+use crate::web::pages::evidence::{EvidenceSection, MetricEvidence};
+use crate::web::pages::{Common, PageData, PageQuery, render};
 
 /// The zone strip of the version in force (if any) above the proposed cut set.
 pub fn strip_for(
@@ -49,7 +51,7 @@ async fn proposal_evidence(
     view: &ProposalView,
     previous: Option<&VersionRecord>,
     (from, to): (&str, &str),
-) -> Result<serde_json::Value, PageError> {
+) -> Result<EvidenceSection, PageError> {
     let (window, window_problem) = crate::web::pages::evidence::window(from, to);
     let latest = &view.latest_revision;
     let proposed = latest
@@ -101,7 +103,7 @@ pub(super) async fn load_with_evidence(
     by: &crate::domain::User,
     id: i64,
     window: (&str, &str),
-) -> Result<(flow::ProposalRead, serde_json::Value), PageError> {
+) -> Result<(flow::ProposalRead, EvidenceSection), PageError> {
     let read = flow::get(&state.store, id, Some(by)).await?;
     let evidence = proposal_evidence(
         state,
@@ -114,13 +116,32 @@ pub(super) async fn load_with_evidence(
     Ok((read, evidence))
 }
 
+/// A proposal with its zone strip, evidence, the reader's notice or error, and its older
+/// revisions (newest first).
+#[derive(Debug, Serialize)]
+pub struct ProposalPage<'a> {
+    pub p: &'a ProposalView,
+    #[serde(flatten)]
+    pub shown: MetricEvidence<'a>,
+    pub strip: String,
+    pub notice: Option<&'a str>,
+    pub error: Option<&'a str>,
+    /// The latest revision's cut points, for the comment form.
+    pub cut_names: Vec<&'static str>,
+    pub older_revisions: Vec<&'a RevisionView>,
+}
+
+impl PageData for ProposalPage<'_> {
+    const TEMPLATE: &'static str = "proposal.html";
+}
+
 #[allow(clippy::too_many_arguments)]
 pub(super) fn proposal_page(
     session: &Session,
     metric: &Metric,
     view: &ProposalView,
     previous: Option<&VersionRecord>,
-    evidence: &serde_json::Value,
+    evidence: &EvidenceSection,
     notice: Option<&str>,
     error: Option<&str>,
     status: StatusCode,
@@ -141,30 +162,25 @@ pub(super) fn proposal_page(
         previous,
         proposed_cuts.as_ref().map(|c| (caption.as_str(), c)),
     );
-    let mut ctx = base_context(
-        Some(session),
-        &format!("Proposal {} for {}", view.id, metric.name),
-        "register",
-    );
-    ctx.insert("p", view);
-    ctx.insert("metric", metric);
-    ctx.insert("strip", &strip);
-    ctx.insert("evidence", evidence);
-    ctx.insert("notice", &notice);
-    ctx.insert("error", &error);
-    ctx.insert(
-        "cut_names",
-        &latest
+    let data = ProposalPage {
+        p: view,
+        shown: MetricEvidence { metric, evidence },
+        strip,
+        notice,
+        error,
+        cut_names: latest
             .direction
             .parse::<Direction>()
             .map(|d| d.cut_names().to_vec())
             .unwrap_or_default(),
-    );
-    ctx.insert(
-        "older_revisions",
-        &view.revisions.iter().rev().skip(1).collect::<Vec<_>>(),
-    );
-    render(status, "proposal.html", &ctx)
+        older_revisions: view.revisions.iter().rev().skip(1).collect(),
+    };
+    let title = format!("Proposal {} for {}", view.id, metric.name);
+    render(
+        status,
+        &Common::new(Some(session), title, "register"),
+        &data,
+    )
 }
 
 pub async fn show(
@@ -193,6 +209,19 @@ pub async fn show(
     ))
 }
 
+/// What the signatory signs: the proposal, its evidence and the signature form.
+#[derive(Debug, Serialize)]
+pub struct SignoffPage<'a> {
+    pub p: &'a ProposalView,
+    #[serde(flatten)]
+    pub shown: MetricEvidence<'a>,
+    pub error: Option<&'a str>,
+}
+
+impl PageData for SignoffPage<'_> {
+    const TEMPLATE: &'static str = "signoff.html";
+}
+
 /// `GET /proposals/{id}/signoff`: what changes, the evidence and the signature form on one
 /// page for the signatory.
 pub async fn signoff_page(
@@ -204,14 +233,18 @@ pub async fn signoff_page(
     let id = parse_id(&id)?;
     let (flow::ProposalRead { view, metric, .. }, evidence) =
         load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
-    let mut ctx = base_context(
-        Some(&session),
-        &format!("Sign off proposal {} for {}", view.id, metric.name),
-        "register",
-    );
-    ctx.insert("p", &view);
-    ctx.insert("metric", &metric);
-    ctx.insert("evidence", &evidence);
-    ctx.insert("error", &None::<String>);
-    Ok(render(StatusCode::OK, "signoff.html", &ctx))
+    let data = SignoffPage {
+        p: &view,
+        shown: MetricEvidence {
+            metric: &metric,
+            evidence: &evidence,
+        },
+        error: None,
+    };
+    let title = format!("Sign off proposal {} for {}", view.id, metric.name);
+    Ok(render(
+        StatusCode::OK,
+        &Common::new(Some(&session), title, "register"),
+        &data,
+    ))
 }

@@ -1,23 +1,29 @@
-//! Admin pages: people (add, roles, display name, activation, password reset) and API tokens
-//! (issue, list, revoke).
+//! Admin pages: people (add, roles, display name, activation, password reset) and, in
+//! [`tokens`], API tokens (issue, list, revoke).
+
+mod tokens;
+
+pub use tokens::{
+    IssuedToken, TokenFormValues, TokenHolder, TokensPage, token_issue, token_revoke, tokens_list,
+};
+
+use std::collections::BTreeMap;
 
 use axum::extract::{FromRequestParts, Path, State};
 use axum::http::StatusCode;
 use axum::http::request::Parts;
 use axum::response::{IntoResponse, Redirect, Response};
-use serde_json::json;
+use serde::Serialize;
 
-use super::{FormFields, PageQuery, base_context, field_errors, page, render};
-use crate::domain::Problems;
-use crate::domain::access::Scope;
-use crate::domain::access::Session;
+use super::{Common, FormFields, PageData, PageQuery, field_errors, page, render};
+use crate::domain::access::{Session, TokenInfo};
+use crate::domain::{FieldProblem, Problems, User};
 use crate::domain::{Role, Timestamp, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By, NewUser};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::redirect::to_same_site;
 
 fn require_admin(session: &Session) -> Result<(), PageError> {
     if session.user.roles.has(Role::Admin) {
@@ -50,15 +56,46 @@ fn all_roles() -> Vec<&'static str> {
     Role::ALL.iter().map(|r| r.as_str()).collect()
 }
 
+/// Everyone with an account.
+#[derive(Debug, Serialize)]
+pub struct PeoplePage<'a> {
+    pub people: &'a [User],
+}
+
+impl PageData for PeoplePage<'_> {
+    const TEMPLATE: &'static str = "admin_users.html";
+}
+
 pub async fn users_list(
     State(state): State<AppState>,
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
     require_admin(&session)?;
     let people = user_ops::list(&state.store).await?;
-    let mut ctx = base_context(Some(&session), "People", "people");
-    ctx.insert("people", &people);
-    Ok(page("admin_users.html", &ctx))
+    let common = Common::new(Some(&session), "People", "people");
+    Ok(page(&common, &PeoplePage { people: &people }))
+}
+
+/// The text fields of the form that adds a person, as typed.
+#[derive(Debug, Serialize)]
+pub struct NewPersonValues {
+    pub username: String,
+    pub display_name: String,
+}
+
+/// The form that adds a person: the fields as typed, the roles to choose from and those
+/// ticked, and the problems of the last try.
+#[derive(Debug, Serialize)]
+pub struct NewPersonForm<'a> {
+    pub values: NewPersonValues,
+    pub roles: Vec<&'static str>,
+    pub checked: Vec<String>,
+    pub errors: BTreeMap<String, String>,
+    pub problems: &'a [FieldProblem],
+}
+
+impl PageData for NewPersonForm<'_> {
+    const TEMPLATE: &'static str = "admin_user_new.html";
 }
 
 fn new_user_form(
@@ -71,16 +108,21 @@ fn new_user_form(
     let checked: Vec<String> = form
         .map(|f| f.all("role").into_iter().map(str::to_string).collect())
         .unwrap_or_default();
-    let mut ctx = base_context(Some(session), "Add a person", "people");
-    ctx.insert(
-        "values",
-        &json!({"username": get("username"), "display_name": get("display_name")}),
-    );
-    ctx.insert("roles", &all_roles());
-    ctx.insert("checked", &checked);
-    ctx.insert("errors", &field_errors(problems));
-    ctx.insert("problems", &problems.0);
-    render(status, "admin_user_new.html", &ctx)
+    let data = NewPersonForm {
+        values: NewPersonValues {
+            username: get("username"),
+            display_name: get("display_name"),
+        },
+        roles: all_roles(),
+        checked,
+        errors: field_errors(problems),
+        problems: &problems.0,
+    };
+    render(
+        status,
+        &Common::new(Some(session), "Add a person", "people"),
+        &data,
+    )
 }
 
 pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response, PageError> {
@@ -129,33 +171,61 @@ pub async fn user_create(
     }
 }
 
+/// A token as the lists show it, with whether it can be used now.
+#[derive(Debug, Serialize)]
+pub struct TokenRow<'a> {
+    pub info: &'a TokenInfo,
+    pub usable: bool,
+}
+
+fn token_rows(tokens: &[TokenInfo]) -> Vec<TokenRow<'_>> {
+    let now = Timestamp::now();
+    tokens
+        .iter()
+        .map(|info| TokenRow {
+            info,
+            usable: info.is_usable(now),
+        })
+        .collect()
+}
+
+/// A person's page: their details and roles, their tokens, and the forms to change them.
+#[derive(Debug, Serialize)]
+pub struct PersonPage<'a> {
+    pub person: &'a User,
+    pub person_roles: Vec<&'static str>,
+    /// Every role, to choose from.
+    pub roles: Vec<&'static str>,
+    pub tokens: Vec<TokenRow<'a>>,
+    pub notice: Option<&'a str>,
+    pub errors: BTreeMap<String, String>,
+    /// The admin is looking at their own page (and may not deactivate themselves).
+    pub is_me: bool,
+}
+
+impl PageData for PersonPage<'_> {
+    const TEMPLATE: &'static str = "admin_user.html";
+}
+
 fn user_page(
     session: &Session,
-    person: &crate::domain::User,
-    person_tokens: &[crate::domain::access::TokenInfo],
+    person: &User,
+    person_tokens: &[TokenInfo],
     notice: Option<&str>,
     problems: &Problems,
     status: StatusCode,
 ) -> Response {
-    let mut ctx = base_context(Some(session), &person.display_name, "people");
-    ctx.insert("person", person);
-    ctx.insert(
-        "person_roles",
-        &person.roles.iter().map(Role::as_str).collect::<Vec<_>>(),
-    );
-    ctx.insert("roles", &all_roles());
-    let now = Timestamp::now();
-    ctx.insert(
-        "tokens",
-        &person_tokens
-            .iter()
-            .map(|t| json!({"info": t, "usable": t.is_usable(now)}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert("notice", &notice);
-    ctx.insert("errors", &field_errors(problems));
-    ctx.insert("is_me", &(session.user.username == person.username));
-    render(status, "admin_user.html", &ctx)
+    let data = PersonPage {
+        person,
+        person_roles: person.roles.iter().map(Role::as_str).collect(),
+        roles: all_roles(),
+        tokens: token_rows(person_tokens),
+        notice,
+        errors: field_errors(problems),
+        is_me: session.user.username == person.username,
+    };
+    let common = Common::new(Some(session), person.display_name.as_str(), "people");
+    render(status, &common, &data)
 }
 
 #[derive(serde::Deserialize, Default)]
@@ -275,163 +345,4 @@ pub async fn user_password(
         }
         Err(e) => reshow_user(&state, &session, &username, e).await,
     }
-}
-
-fn tokens_page(
-    session: &Session,
-    all: &[crate::domain::access::TokenInfo],
-    people: &[crate::domain::User],
-    issued: Option<(&str, &crate::domain::access::TokenInfo)>,
-    form: Option<&FormFields>,
-    problems: &Problems,
-    status: StatusCode,
-) -> Response {
-    let now = Timestamp::now();
-    let mut ctx = base_context(Some(session), "API tokens", "tokens");
-    ctx.insert(
-        "tokens",
-        &all.iter()
-            .map(|t| json!({"info": t, "usable": t.is_usable(now)}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert(
-        "people",
-        &people
-            .iter()
-            .filter(|p| p.active)
-            .map(|p| json!({"username": p.username, "display_name": p.display_name}))
-            .collect::<Vec<_>>(),
-    );
-    ctx.insert(
-        "issued",
-        &issued.map(|(secret, info)| json!({"secret": secret, "info": info})),
-    );
-    let get = |name: &str| form.map(|f| f.get(name).to_string()).unwrap_or_default();
-    ctx.insert(
-        "values",
-        &json!({"username": get("username"), "scope": get("scope"), "label": get("label"), "expires_in_days": get("expires_in_days")}),
-    );
-    ctx.insert("errors", &field_errors(problems));
-    render(status, "admin_tokens.html", &ctx)
-}
-
-pub async fn tokens_list(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let all = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-    let people = user_ops::list(&state.store).await?;
-    Ok(tokens_page(
-        &session,
-        &all,
-        &people,
-        None,
-        None,
-        &Problems::default(),
-        StatusCode::OK,
-    ))
-}
-
-/// Reads "expires in N days": blank means never.
-fn expiry_field(text: &str, problems: &mut Problems) -> Option<Timestamp> {
-    let text = text.trim();
-    if text.is_empty() {
-        return None;
-    }
-    match text.parse::<i64>() {
-        Ok(days) if (1..=3650).contains(&days) => {
-            Some(Timestamp::now().plus_seconds(days * 86_400))
-        }
-        _ => {
-            problems.add(
-                "expires_in_days",
-                "expires_in_days must be a whole number of days from 1 to 3650, or blank for no expiry",
-            );
-            None
-        }
-    }
-}
-
-pub async fn token_issue(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let mut problems = Problems::default();
-    let scope = match Scope::parse(form.get("scope")) {
-        Ok(s) => Some(s),
-        Err(m) => {
-            problems.add("scope", m);
-            None
-        }
-    };
-    let expires_at = expiry_field(form.get("expires_in_days"), &mut problems);
-    let result = match scope {
-        Some(scope) if problems.is_empty() => user_ops::issue_token(
-            &state.store,
-            By::Person(&session.user),
-            form.get("username"),
-            scope,
-            form.get("label"),
-            expires_at,
-        )
-        .await
-        .map_err(|e| match e {
-            OpError::NotFound(m) => {
-                let mut p = Problems::default();
-                p.add("username", m);
-                OpError::Invalid(p)
-            }
-            other => other,
-        }),
-        _ => Err(OpError::Invalid(problems)),
-    };
-    let people = user_ops::list(&state.store).await?;
-    match result {
-        Ok((secret, info)) => {
-            let listed =
-                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-            Ok(tokens_page(
-                &session,
-                &listed,
-                &people,
-                Some((&secret, &info)),
-                None,
-                &Problems::default(),
-                StatusCode::CREATED,
-            ))
-        }
-        Err(e) => {
-            let (p, status) = form_problems(e, "label")?;
-            let listed =
-                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-            Ok(tokens_page(
-                &session,
-                &listed,
-                &people,
-                None,
-                Some(&form),
-                &p,
-                status,
-            ))
-        }
-    }
-}
-
-pub async fn token_revoke(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let id: i64 = id
-        .parse()
-        .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
-    user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
-    state.tokens.clear();
-    let back = Some(form.get("back")).filter(|b| b.starts_with("/admin/"));
-    Ok(to_same_site(back.unwrap_or(""), "/admin/tokens").into_response())
 }
