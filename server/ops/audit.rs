@@ -54,18 +54,21 @@ async fn all_metrics(store: &Store) -> OpResult<Vec<Metric>> {
 // ----- why did it move -----
 
 /// One version in a metric's timeline, with the discussion that led to it.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct TimelineEntry {
     #[serde(flatten)]
     pub version: super::versions::VersionView,
     pub reviews: Vec<super::proposals::ReviewView>,
     pub signoffs: Vec<super::proposals::SignoffView>,
     pub comments: Vec<super::proposals::CommentView>,
+    /// How many revisions the proposal had.
     pub revisions: usize,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// Why a metric's thresholds moved: every version, newest first, with who, when and why.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Timeline {
+    /// The metric's key.
     pub metric: String,
     pub name: String,
     pub versions: Vec<TimelineEntry>,
@@ -98,16 +101,20 @@ pub async fn timeline(store: &Store, by: &User, key: &str) -> OpResult<Timeline>
 // ----- as of -----
 
 /// A version as the as-of view shows it.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct VersionBrief {
     pub number: i64,
+    #[schema(value_type = crate::domain::Direction)]
     pub direction: &'static str,
+    /// The four cut points by name.
     pub cuts: std::collections::BTreeMap<&'static str, f64>,
     /// The cuts in their order, as words: "critical 50, intervene 70, ...".
     pub cuts_text: String,
     pub effective_from: Timestamp,
     pub approved_at: Timestamp,
+    /// The approvers' display names.
     pub approvers: Vec<String>,
+    /// The signatory's display name, if one signed.
     pub signatory: Option<String>,
 }
 
@@ -131,8 +138,10 @@ fn brief(v: &VersionRecord) -> VersionBrief {
     }
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// One metric in the as-of view.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct AsOfEntry {
+    /// The metric's key.
     pub metric: String,
     pub name: String,
     /// In force at `as_of`, as the register had recorded it by `known_at`.
@@ -140,10 +149,13 @@ pub struct AsOfEntry {
     /// In force at `as_of` as the register knows it now, when that differs: a version
     /// approved after `known_at` took effect at or before `as_of` (a retroactive change).
     pub known_later: Option<VersionBrief>,
+    /// The finding in words.
     pub note: String,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// The versions in force at a valid time (`as_of`), as the register knew them at a
+/// transaction time (`known_at`).
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct AsOf {
     pub as_of: Timestamp,
     pub known_at: Timestamp,
@@ -199,17 +211,21 @@ pub async fn as_of(
 
 // ----- exceptions -----
 
-#[derive(Clone, Debug, Serialize)]
+/// An event worth a look, with its payload as `details`.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct EventException {
     pub seq: i64,
     pub at: Timestamp,
     pub actor: String,
     pub action: String,
     pub subject: String,
+    /// The event's payload (docs/events.md).
+    #[schema(value_type = Object)]
     pub details: Value,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A version approved without a sign-off.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct UnsignedVersion {
     pub metric: String,
     pub version: i64,
@@ -219,7 +235,8 @@ pub struct UnsignedVersion {
     pub reasons: Vec<String>,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A metric whose review cadence has passed without a new version.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct LapsedReview {
     pub metric: String,
     pub review_cadence_months: i64,
@@ -228,7 +245,9 @@ pub struct LapsedReview {
     pub due: Timestamp,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// What deserves an auditor's look: refusals, stale approvals, versions approved without a
+/// sign-off, sign-in failures and lapsed reviews.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Exceptions {
     /// Self-approvals and sign-offs refused by separation of duties.
     pub refused_decisions: Vec<EventException>,
@@ -353,13 +372,14 @@ pub async fn exceptions(store: &Store, by: &User) -> OpResult<Exceptions> {
 // ----- the record itself -----
 
 /// An extract of the event record with what is needed to check it is complete.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Extract {
     pub entries: Vec<crate::audit::Entry>,
     pub summary: ExtractSummary,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// What an extract holds and where the whole chain stood when it was taken.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct ExtractSummary {
     pub count: usize,
     pub first_seq: Option<i64>,
@@ -399,8 +419,9 @@ pub async fn extract(store: &Store, by: &User, filter: &EventFilter) -> OpResult
     })
 }
 
-/// The verification result as the API and page give it.
-#[derive(Clone, Debug, Serialize)]
+/// The verification result as the API and page give it: whether the chain holds and the
+/// audited tables match it, and the first broken event if not.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Verification {
     pub ok: bool,
     pub events: Option<i64>,

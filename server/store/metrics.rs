@@ -7,7 +7,7 @@ use sqlx::any::AnyRow;
 
 use super::{Actor, Store, StoreError, StoreResult, WriteTx};
 use crate::domain::metric::MetricFields;
-use crate::domain::{Metric, MetricKey, Owner, Problems, Role, Username};
+use crate::domain::{Metric, MetricKey, PersonRef, Problems, Role, Username};
 
 /// A change to some descriptive fields; `None` leaves a field as it is.
 #[derive(Clone, Debug, Default)]
@@ -96,7 +96,7 @@ async fn attach_owners_and_tags(
     for row in owners_query.fetch_all(&mut *conn).await? {
         let id: i64 = row.try_get("metric_id")?;
         if let Some(m) = metrics.iter_mut().find(|m| m.id == id) {
-            m.owners.push(Owner {
+            m.owners.push(PersonRef {
                 username: row.try_get("username")?,
                 display_name: row.try_get("display_name")?,
             });
@@ -221,7 +221,10 @@ pub async fn list(
 }
 
 /// Resolves owners to user ids; each must exist, be active and hold the `owner` role.
-async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec<(i64, Owner)>> {
+async fn resolve_owners(
+    w: &mut WriteTx,
+    owners: &[Username],
+) -> StoreResult<Vec<(i64, PersonRef)>> {
     let mut problems = Problems::default();
     let mut out = Vec::new();
     for name in owners {
@@ -253,7 +256,7 @@ async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec
                 } else {
                     out.push((
                         row.try_get("id")?,
-                        Owner {
+                        PersonRef {
                             username: row.try_get("username")?,
                             display_name: row.try_get("display_name")?,
                         },
@@ -269,7 +272,11 @@ async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec
     }
 }
 
-async fn write_owners(w: &mut WriteTx, metric_id: i64, owners: &[(i64, Owner)]) -> StoreResult<()> {
+async fn write_owners(
+    w: &mut WriteTx,
+    metric_id: i64,
+    owners: &[(i64, PersonRef)],
+) -> StoreResult<()> {
     sqlx::query("DELETE FROM metric_owners WHERE metric_id = $1")
         .bind(metric_id)
         .execute(w.conn())
