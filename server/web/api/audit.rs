@@ -7,7 +7,7 @@ use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
 use super::metrics::KeyPath;
-use super::openapi::{AuditView, ErrorBody};
+use super::openapi::{AuditView, BadRequest, Forbidden, NotFound, Unauthenticated, Unavailable};
 use crate::domain::MetricKey;
 use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::EventFilter;
@@ -68,7 +68,8 @@ impl ExtractQuery {
 
 /// `GET /api/v1/audit`: a page of events with a summary for checking completeness.
 #[utoipa::path(get, path = "/v1/audit", operation_id = "listEvents", tag = "audit", params(ExtractQuery),
-    responses((status = 200, description = "A page of events with a summary for checking completeness", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "A page of events with a summary for checking completeness", body = AuditView),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn events(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -163,7 +164,8 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
 
 /// `GET /api/v1/audit.csv`.
 #[utoipa::path(get, path = "/v1/audit.csv", operation_id = "listEventsCsv", tag = "audit", params(ExtractQuery),
-    responses((status = 200, description = "The events as RFC 4180 CSV; the summary in response headers", body = String, content_type = "text/csv"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "The events as RFC 4180 CSV; the summary in response headers", body = String, content_type = "text/csv"),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn events_csv(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -202,7 +204,8 @@ fn known_head(text: &str) -> Result<Option<(i64, String)>, ApiError> {
 
 /// `GET /api/v1/audit/verify[?known_head=SEQ:HASH]`.
 #[utoipa::path(get, path = "/v1/audit/verify", operation_id = "verifyAuditChain", tag = "audit", params(VerifyQuery),
-    responses((status = 200, description = "Whether the chain holds, and the first broken event if not", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "Whether the chain holds, and the first broken event if not", body = AuditView),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn verify(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -214,7 +217,8 @@ pub async fn verify(
 
 /// `GET /api/v1/audit/exceptions`.
 #[utoipa::path(get, path = "/v1/audit/exceptions", operation_id = "listExceptions", tag = "audit",
-    responses((status = 200, description = "Versions approved without a sign-off, refusals and other exceptions", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "Versions approved without a sign-off, refusals and other exceptions", body = AuditView),
+        Unauthenticated, Forbidden, Unavailable))]
 pub async fn exceptions(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -225,7 +229,8 @@ pub async fn exceptions(
 /// `GET /api/v1/audit/metrics/{key}`: why did it move.
 #[utoipa::path(get, path = "/v1/audit/metrics/{key}", operation_id = "getMetricTimeline", tag = "audit",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+    responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = AuditView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
 pub async fn timeline(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -248,7 +253,8 @@ pub struct AsOfQuery {
 
 /// `GET /api/v1/audit/as-of?as_of=T&known_at=R[&metric=KEY]`.
 #[utoipa::path(get, path = "/v1/audit/as-of", operation_id = "getVersionsAsOf", tag = "audit", params(AsOfQuery),
-    responses((status = 200, description = "The versions in force at a valid time, as known at a transaction time", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "The versions in force at a valid time, as known at a transaction time", body = AuditView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
 pub async fn as_of(
     State(state): State<AppState>,
     caller: ApiCaller,

@@ -7,7 +7,10 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
-use super::openapi::{ErrorBody, MetricDetail};
+use super::openapi::{
+    BadRequest, ErrorBody, Forbidden, MetricDetail, NotFound, NotJson, TooLarge, Unauthenticated,
+    Unavailable,
+};
 use serde_json::json;
 
 use crate::domain::MetricKey;
@@ -40,9 +43,9 @@ impl FromRequestParts<AppState> for KeyPath {
     request_body = NewMetric,
     responses(
         (status = 201, description = "Created; Location names it", body = crate::domain::Metric),
-        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody),
+        BadRequest, Unauthenticated, Forbidden,
         (status = 409, description = "A metric with this key exists", body = ErrorBody),
-
+        TooLarge, NotJson, Unavailable,
     ))]
 pub async fn create(
     State(state): State<AppState>,
@@ -77,7 +80,8 @@ pub struct ListQuery {
 
 /// `GET /api/v1/metrics`: the register, a page at a time.
 #[utoipa::path(get, path = "/v1/metrics", operation_id = "listMetrics", tag = "register", params(ListQuery),
-    responses((status = 200, description = "A page of the register", body = metrics::MetricPage), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "A page of the register", body = metrics::MetricPage),
+        BadRequest, Unauthenticated, Unavailable))]
 pub async fn list(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -107,7 +111,8 @@ pub async fn list(
 /// `GET /api/v1/metrics/{key}`: a metric with its version in force.
 #[utoipa::path(get, path = "/v1/metrics/{key}", operation_id = "getMetric", tag = "register",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "The metric", body = MetricDetail), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The metric", body = MetricDetail),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -132,7 +137,8 @@ pub async fn show(
 #[utoipa::path(patch, path = "/v1/metrics/{key}", operation_id = "editMetric", tag = "register",
     params(("key" = String, Path, description = "Metric key")),
     request_body = MetricEdit,
-    responses((status = 200, description = "The metric as changed", body = crate::domain::Metric), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The metric as changed", body = crate::domain::Metric),
+        BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn edit(
     State(state): State<AppState>,
     caller: ApiCaller,

@@ -15,11 +15,12 @@ use serde_json::json;
 use super::auth::{ApiCaller, Credential};
 use super::error::ApiError;
 use crate::domain::Role;
+use openapi::{Unauthenticated, Unavailable};
 
 /// `GET /api/v1/me`: who the credentials belong to, and for a browser session the CSRF token
 /// that scripts must send in `X-CSRF-Token`.
 #[utoipa::path(get, path = "/v1/me", operation_id = "getMe", tag = "service",
-    responses((status = 200, description = "The caller", body = openapi::Me), (status = 401, description = "No valid credential", body = openapi::ErrorBody)))]
+    responses((status = 200, description = "The caller", body = openapi::Me), Unauthenticated, Unavailable))]
 pub async fn me(caller: ApiCaller) -> Response {
     let user = caller.user();
     let (via, csrf) = match &caller.0 {

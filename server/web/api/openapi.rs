@@ -15,7 +15,7 @@ use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
 use serde_json::{Value, json};
 use utoipa::openapi::security::{ApiKey, ApiKeyValue, HttpAuthScheme, HttpBuilder, SecurityScheme};
-use utoipa::{Modify, OpenApi, ToSchema};
+use utoipa::{IntoResponses, Modify, OpenApi, ToSchema};
 
 /// The committed JSON Schema of the published set.
 const PUBLISHED_SET_SCHEMA: &str = include_str!("../../../docs/schema/published-set.schema.json");
@@ -35,6 +35,7 @@ const PUBLISHED_SET_SCHEMA: &str = include_str!("../../../docs/schema/published-
             codes and licensed practice.",
         license(name = "Proprietary"),
     ),
+    components(schemas(ErrorBody)),
     modifiers(&Security),
     security(("bearer" = []), ("session" = [])),
     tags(
@@ -185,6 +186,62 @@ pub async fn openapi_json() -> Response {
     )
         .into_response()
 }
+
+// The answers many operations share, described once. Each is the API's error body with the
+// status that names it; an operation lists the ones it can give beside its own answers.
+
+/// Malformed request, or invalid fields each named in error.fields
+#[derive(IntoResponses)]
+#[response(status = 400)]
+pub struct BadRequest(pub ErrorBody);
+
+/// No valid credential
+#[derive(IntoResponses)]
+#[response(status = 401)]
+pub struct Unauthenticated(pub ErrorBody);
+
+/// The caller may not do this: not their role, a read-scope token, or a browser session
+/// without its X-CSRF-Token
+#[derive(IntoResponses)]
+#[response(status = 403)]
+pub struct Forbidden(pub ErrorBody);
+
+/// No such metric, proposal, revision or version; the message says which
+#[derive(IntoResponses)]
+#[response(status = 404)]
+pub struct NotFound(pub ErrorBody);
+
+/// The proposal moved on: stale revision hash or wrong state
+#[derive(IntoResponses)]
+#[response(status = 409)]
+pub struct ProposalMovedOn(pub ErrorBody);
+
+/// The body is larger than this operation accepts
+#[derive(IntoResponses)]
+#[response(status = 413)]
+pub struct TooLarge(pub ErrorBody);
+
+/// The body is not application/json
+#[derive(IntoResponses)]
+#[response(status = 415)]
+pub struct NotJson(pub ErrorBody);
+
+/// Too many wrong passwords: try again after Retry-After seconds
+#[derive(IntoResponses)]
+#[response(
+    status = 429,
+    headers(("Retry-After" = u64, description = "Seconds until the next attempt is taken"))
+)]
+pub struct Throttled(pub ErrorBody);
+
+/// The database is busy with other changes or not answering; nothing was changed. Try again
+/// after Retry-After seconds
+#[derive(IntoResponses)]
+#[response(
+    status = 503,
+    headers(("Retry-After" = u64, description = "Seconds to wait before trying again"))
+)]
+pub struct Unavailable(pub ErrorBody);
 
 // Schemas of responses that handlers assemble as JSON values. Tests validate real responses
 // against these.

@@ -9,7 +9,10 @@ use serde::Deserialize;
 use serde::de::DeserializeOwned;
 
 use super::metrics::KeyPath;
-use super::openapi::{AuditView, ErrorBody, History, ProposalInput, ProposalView};
+use super::openapi::{
+    AuditView, BadRequest, ErrorBody, Forbidden, History, NotFound, NotJson, ProposalInput,
+    ProposalMovedOn, ProposalView, Throttled, TooLarge, Unauthenticated, Unavailable,
+};
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
@@ -78,7 +81,10 @@ async fn proposal_response(
 #[utoipa::path(post, path = "/v1/metrics/{key}/proposals", operation_id = "createProposal", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
     request_body = ProposalInput,
-    responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound,
+        (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
+        TooLarge, NotJson, Unavailable))]
 pub async fn create(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -92,7 +98,8 @@ pub async fn create(
 /// `GET /api/v1/proposals/{id}`.
 #[utoipa::path(get, path = "/v1/proposals/{id}", operation_id = "getProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
-    responses((status = 200, description = "The proposal", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal", body = ProposalView),
+        Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -105,7 +112,8 @@ pub async fn show(
 #[utoipa::path(put, path = "/v1/proposals/{id}", operation_id = "reviseProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = RevisionInput,
-    responses((status = 200, description = "The proposal with its new revision", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal with its new revision", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn revise(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -119,7 +127,8 @@ pub async fn revise(
 /// `POST /api/v1/proposals/{id}/submit`: asks for review.
 #[utoipa::path(post, path = "/v1/proposals/{id}/submit", operation_id = "submitProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
-    responses((status = 200, description = "The proposal, in review", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, in review", body = ProposalView),
+        Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
 pub async fn submit(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -142,7 +151,8 @@ pub struct CommentInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/comments", operation_id = "commentOnProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = CommentInput,
-    responses((status = 201, description = "The proposal with the comment", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 201, description = "The proposal with the comment", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn comment(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -175,7 +185,8 @@ pub struct ReviewInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/reviews", operation_id = "reviewProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = ReviewInput,
-    responses((status = 200, description = "The proposal after the review", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal after the review", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn review(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -213,10 +224,13 @@ pub struct SignoffInput {
 }
 
 /// `POST /api/v1/proposals/{id}/signoff`: leadership's sign-off of a worst-level change.
+///
+/// A wrong password answers 401, and repeated wrong passwords 429.
 #[utoipa::path(post, path = "/v1/proposals/{id}/signoff", operation_id = "signOffProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = SignoffInput,
-    responses((status = 200, description = "The proposal after the sign-off", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal after the sign-off", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Throttled, Unavailable))]
 pub async fn signoff(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -245,7 +259,8 @@ pub struct ReasonInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/withdraw", operation_id = "withdrawProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body(content = Option<ReasonInput>, description = "Optional"),
-    responses((status = 200, description = "The proposal, withdrawn", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, withdrawn", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn withdraw(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -260,7 +275,8 @@ pub async fn withdraw(
 #[utoipa::path(post, path = "/v1/proposals/{id}/reject", operation_id = "rejectProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = ReasonInput,
-    responses((status = 200, description = "The proposal, rejected", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, rejected", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn reject(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -274,7 +290,8 @@ pub async fn reject(
 /// `GET /api/v1/metrics/{key}/history`: every version, oldest first.
 #[utoipa::path(get, path = "/v1/metrics/{key}/history", operation_id = "getMetricHistory", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "Every version, oldest first", body = History), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "Every version, oldest first", body = History),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn history(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -287,7 +304,8 @@ pub async fn history(
 
 /// `GET /api/v1/inbox`: what waits for the caller.
 #[utoipa::path(get, path = "/v1/inbox", operation_id = "getInbox", tag = "workflow",
-    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = AuditView),
+        Unauthenticated, Unavailable))]
 pub async fn inbox(State(state): State<AppState>, caller: ApiCaller) -> Result<Response, ApiError> {
     Ok(Json(flow::inbox(&state.store, caller.user()).await?).into_response())
 }

@@ -12,7 +12,10 @@ use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::openapi::{ChangeList, ErrorBody, EvaluateResponse, KeyList, PublishedSet};
+use super::openapi::{
+    BadRequest, ChangeList, ErrorBody, EvaluateResponse, Forbidden, KeyList, NotJson, PublishedSet,
+    Unauthenticated, Unavailable,
+};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
 use crate::publish::document::Rendered;
@@ -150,7 +153,8 @@ async fn rendered(
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set(
     State(state): State<AppState>,
@@ -173,7 +177,8 @@ pub async fn set(
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set_csv(
     State(state): State<AppState>,
@@ -197,8 +202,10 @@ pub async fn set_csv(
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated,
         (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
+        Unavailable,
     ))]
 pub async fn one(
     State(state): State<AppState>,
@@ -234,7 +241,8 @@ pub struct ChangesQuery {
 /// revisions, with their old and new cuts.
 #[utoipa::path(get, path = "/v1/published/changes", operation_id = "getPublishedChanges", tag = "published",
     params(ChangesQuery),
-    responses((status = 200, description = "The metrics whose version changed, with old and new cuts", body = ChangeList), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "The metrics whose version changed, with old and new cuts", body = ChangeList),
+        BadRequest, Unauthenticated, Unavailable))]
 pub async fn changes(
     State(state): State<AppState>,
     _reader: Reader,
@@ -259,7 +267,8 @@ pub async fn changes(
 
 /// `GET /api/v1/keys`: the public keys, current and retired, to verify signatures with.
 #[utoipa::path(get, path = "/v1/keys", operation_id = "listSigningKeys", tag = "published",
-    responses((status = 200, description = "Every signing key, current and retired", body = KeyList), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "Every signing key, current and retired", body = KeyList),
+        Unauthenticated, Unavailable))]
 pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Response, ApiError> {
     let keys = crate::ops::publication::keys(&state.store).await?;
     Ok(Json(json!({"keys": keys})).into_response())
@@ -316,8 +325,9 @@ enum EvaluateResult {
     request_body = EvaluateRequest,
     responses(
         (status = 200, description = "One result per value, in order", body = EvaluateResponse),
-        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        BadRequest, Unauthenticated, Forbidden,
         (status = 413, description = "More than 10,000 values, or a body over the limit", body = ErrorBody),
+        NotJson, Unavailable,
     ))]
 pub async fn evaluate(
     State(state): State<AppState>,
