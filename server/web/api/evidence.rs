@@ -9,7 +9,7 @@ use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
 use super::metrics::KeyPath;
-use super::openapi::{BadRequest, ErrorBody, NotFound, Unauthenticated, Unavailable};
+use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
 use crate::domain::observations::Mode;
@@ -18,7 +18,7 @@ use crate::ops::evidence::{self, Evidence, ProposalBacktest, VersionBacktest, Wi
 use crate::ops::uploads::{self, Format, UploadReport, Uploader};
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::{ApiQuery, read_body, time_param};
 
 /// The window and the critical share a reader chose.
@@ -133,8 +133,9 @@ pub async fn upload(
 /// A window of the stored history.
 #[derive(Serialize, utoipa::ToSchema)]
 pub struct ObservationList {
+    /// The metric's key.
     pub metric: String,
-    #[schema(value_type = Vec<Object>)]
+    /// Oldest first.
     pub observations: Vec<Observation>,
 }
 

@@ -5,21 +5,22 @@ use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use serde::Deserialize;
 use serde::de::DeserializeOwned;
+use serde::{Deserialize, Serialize};
 
 use super::metrics::KeyPath;
 use super::openapi::{
-    AuditView, BadRequest, ErrorBody, Forbidden, History, NotFound, NotJson, ProposalInput,
-    ProposalMovedOn, ProposalView, Throttled, TooLarge, Unauthenticated, Unavailable,
+    BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
+    Unauthenticated, Unavailable,
 };
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
-use crate::ops::proposals::{self as flow, RevisionInput};
+use crate::ops::proposals::{self as flow, Inbox, ProposalView, RevisionInput};
+use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::ApiJson;
 
 /// A proposal id from the path; anything but a whole number is no such proposal.
@@ -80,7 +81,7 @@ async fn proposal_response(
 /// `POST /api/v1/metrics/{key}/proposals`: proposes thresholds for a metric (its owners).
 #[utoipa::path(post, path = "/v1/metrics/{key}/proposals", operation_id = "createProposal", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
-    request_body = ProposalInput,
+    request_body = ContentInput,
     responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound,
         (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
@@ -287,25 +288,39 @@ pub async fn reject(
     proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
+/// A metric's versions, oldest first.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct MetricHistory {
+    /// The metric's key.
+    pub metric: String,
+    pub versions: Vec<VersionView>,
+}
+
 /// `GET /api/v1/metrics/{key}/history`: every version, oldest first.
 #[utoipa::path(get, path = "/v1/metrics/{key}/history", operation_id = "getMetricHistory", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "Every version, oldest first", body = History),
+    responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn history(
     State(state): State<AppState>,
     _caller: ApiCaller,
     KeyPath(key): KeyPath,
-) -> Result<Response, ApiError> {
+) -> Result<Json<MetricHistory>, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
     let versions = crate::ops::versions::history(&state.store, &metric).await?;
-    Ok(Json(serde_json::json!({"metric": metric.key, "versions": versions})).into_response())
+    Ok(Json(MetricHistory {
+        metric: metric.key.to_string(),
+        versions,
+    }))
 }
 
 /// `GET /api/v1/inbox`: what waits for the caller.
 #[utoipa::path(get, path = "/v1/inbox", operation_id = "getInbox", tag = "workflow",
-    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = AuditView),
+    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = Inbox),
         Unauthenticated, Unavailable))]
-pub async fn inbox(State(state): State<AppState>, caller: ApiCaller) -> Result<Response, ApiError> {
-    Ok(Json(flow::inbox(&state.store, caller.user()).await?).into_response())
+pub async fn inbox(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+) -> Result<Json<Inbox>, ApiError> {
+    Ok(Json(flow::inbox(&state.store, caller.user()).await?))
 }
