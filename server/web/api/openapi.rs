@@ -189,58 +189,34 @@ pub async fn openapi_json() -> Response {
         .into_response()
 }
 
-// The answers many operations share, described once. Each is the API's error body with the
-// status that names it; an operation lists the ones it can give beside its own answers.
+/// Declares the error answers operations share, as one table: for each, a type named for the
+/// answer (an operation lists it by name in `responses(...)`), its status, its description,
+/// and for answers that say when to try again, what their Retry-After header holds. Each
+/// answers the error body.
+macro_rules! error_answers {
+    ($($name:ident = $status:tt, $description:tt $(, retry_after $seconds:tt)?;)+) => {$(
+        #[doc = $description]
+        #[derive(IntoResponses)]
+        #[response(
+            status = $status
+            $(, headers(("Retry-After" = u64, description = $seconds)))?
+        )]
+        pub struct $name(pub ErrorBody);
+    )+};
+}
 
-/// Malformed request, or invalid fields each named in error.fields
-#[derive(IntoResponses)]
-#[response(status = 400)]
-pub struct BadRequest(pub ErrorBody);
-
-/// No valid credential
-#[derive(IntoResponses)]
-#[response(status = 401)]
-pub struct Unauthenticated(pub ErrorBody);
-
-/// The caller may not do this: not their role, a read-scope token, or a browser session
-/// without its X-CSRF-Token
-#[derive(IntoResponses)]
-#[response(status = 403)]
-pub struct Forbidden(pub ErrorBody);
-
-/// No such metric, proposal, revision or version; the message says which
-#[derive(IntoResponses)]
-#[response(status = 404)]
-pub struct NotFound(pub ErrorBody);
-
-/// The proposal moved on: stale revision hash or wrong state
-#[derive(IntoResponses)]
-#[response(status = 409)]
-pub struct ProposalMovedOn(pub ErrorBody);
-
-/// The body is larger than this operation accepts
-#[derive(IntoResponses)]
-#[response(status = 413)]
-pub struct TooLarge(pub ErrorBody);
-
-/// The body is not application/json
-#[derive(IntoResponses)]
-#[response(status = 415)]
-pub struct NotJson(pub ErrorBody);
-
-/// Too many wrong passwords: try again after Retry-After seconds
-#[derive(IntoResponses)]
-#[response(
-    status = 429,
-    headers(("Retry-After" = u64, description = "Seconds until the next attempt is taken"))
-)]
-pub struct Throttled(pub ErrorBody);
-
-/// The database is busy with other changes or not answering; nothing was changed. Try again
-/// after Retry-After seconds
-#[derive(IntoResponses)]
-#[response(
-    status = 503,
-    headers(("Retry-After" = u64, description = "Seconds to wait before trying again"))
-)]
-pub struct Unavailable(pub ErrorBody);
+error_answers! {
+    BadRequest = 400, "Malformed request, or invalid fields each named in error.fields";
+    Unauthenticated = 401, "No valid credential";
+    Forbidden = 403, "The caller may not do this: not their role, a read-scope token, \
+        or a browser session without its X-CSRF-Token";
+    NotFound = 404, "No such metric, proposal, revision or version; the message says which";
+    ProposalMovedOn = 409, "The proposal moved on: stale revision hash or wrong state";
+    TooLarge = 413, "The body is larger than this operation accepts";
+    NotJson = 415, "The body is not application/json";
+    Throttled = 429, "Too many wrong passwords: try again after Retry-After seconds",
+        retry_after "Seconds until the next attempt is taken";
+    Unavailable = 503, "The database is busy with other changes or not answering; nothing \
+        was changed. Try again after Retry-After seconds",
+        retry_after "Seconds to wait before trying again";
+}
