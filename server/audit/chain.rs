@@ -14,19 +14,25 @@ use crate::domain::Timestamp;
 /// The hash that precedes the first event.
 pub const GENESIS_HASH: &str = "0000000000000000000000000000000000000000000000000000000000000000";
 
-/// One event as it is hashed and exported.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+/// One event as it is hashed and exported (docs/events.md).
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
+#[schema(as = AuditEvent)]
 pub struct Event {
     pub seq: i64,
     pub at: Timestamp,
+    /// Who did it: a username, or `system` / `cli` for the instance itself.
     pub actor: String,
     pub action: String,
+    /// What it is about, e.g. `metric:KEY`.
     pub subject: String,
+    /// What the action recorded; its fields depend on the action (docs/events.md).
+    #[schema(value_type = Object)]
     pub payload: Value,
 }
 
 /// An event with its links, as stored and exported: `{"event":{...},"prev_hash":"...","hash":"..."}`.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
+#[schema(as = AuditEntry)]
 pub struct Entry {
     pub event: Event,
     pub prev_hash: String,

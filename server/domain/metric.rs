@@ -3,17 +3,9 @@
 use serde::Serialize;
 use serde_json::{Map, Value, json};
 
-use super::people::Username;
+use super::people::{PersonRef, Username};
 use super::text::{self, TextError};
 use super::{MetricKey, Timestamp};
-
-/// A person named as an owner of a metric.
-#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
-pub struct Owner {
-    #[schema(value_type = String)]
-    pub username: Username,
-    pub display_name: String,
-}
 
 /// A metric of the register, as stored.
 #[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
@@ -25,13 +17,11 @@ pub struct Metric {
     pub name: String,
     pub description: String,
     pub unit: String,
-    pub owners: Vec<Owner>,
+    pub owners: Vec<PersonRef>,
     pub data_source: String,
     pub review_cadence_months: Option<i64>,
     pub tags: Vec<String>,
-    #[schema(value_type = String)]
     pub created_at: Timestamp,
-    #[schema(value_type = String)]
     pub updated_at: Timestamp,
 }
 

@@ -17,8 +17,8 @@ pub mod time;
 mod validated_text;
 
 pub use key::MetricKey;
-pub use metric::{Metric, Owner};
-pub use people::{Person, Role, Roles, User, Username};
+pub use metric::Metric;
+pub use people::{Person, PersonRef, Role, Roles, User, Username};
 pub use problems::{FieldProblem, Problems};
 pub use thresholds::{CutSet, Direction, Shades};
 pub use time::Timestamp;

@@ -35,6 +35,23 @@ pub struct Person {
     pub roles: Roles,
 }
 
+/// A person as an answer names them: a metric's owner, a proposal's author, a reviewer.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
+pub struct PersonRef {
+    #[schema(value_type = String)]
+    pub username: Username,
+    pub display_name: String,
+}
+
+impl From<&Person> for PersonRef {
+    fn from(p: &Person) -> PersonRef {
+        PersonRef {
+            username: p.username.clone(),
+            display_name: p.display_name.clone(),
+        }
+    }
+}
+
 #[derive(Clone, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
 #[serde(transparent)]
 pub struct Username(String);
@@ -64,7 +81,19 @@ pub fn display_name(text: &str) -> Result<String, TextError> {
 
 /// What a person may do. One person may hold several roles; `owner` marks people who may be
 /// named owners of metrics (ownership itself is per metric).
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[derive(
+    Clone,
+    Copy,
+    Debug,
+    PartialEq,
+    Eq,
+    PartialOrd,
+    Ord,
+    Hash,
+    Serialize,
+    Deserialize,
+    utoipa::ToSchema,
+)]
 #[serde(rename_all = "snake_case")]
 pub enum Role {
     Admin,

@@ -4,14 +4,14 @@
 use serde::Serialize;
 
 /// One field that failed validation, with a message fit to show beside it.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 pub struct FieldProblem {
     pub field: String,
     pub message: String,
 }
 
 /// Every problem found in one submission, so a form can show them all at once.
-#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 #[serde(transparent)]
 pub struct Problems(pub Vec<FieldProblem>);
 

@@ -27,12 +27,17 @@ impl ThresholdContent {
     }
 }
 
-/// A proposal or revision as submitted, before validation.
-#[derive(Clone, Debug, Default, Deserialize)]
+/// A proposal or revision as submitted, before validation: the content fields, as
+/// `POST /api/v1/metrics/{key}/proposals` takes them.
+#[derive(Clone, Debug, Default, Deserialize, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ContentInput {
+    /// higher_is_better, lower_is_better or target_band.
     pub direction: String,
+    /// The four cut points by name: critical, intervene, outperform, stretch; for a band
+    /// critical_low, intervene_low, intervene_high, critical_high.
     pub cuts: BTreeMap<String, f64>,
+    /// Shades per graded zone, 2 to 5 (default 3).
     #[serde(default)]
     pub shades: Option<i64>,
     /// Defaults to the metric's unit.
@@ -115,7 +120,7 @@ pub fn cuts_object(cuts: &CutSet) -> BTreeMap<&'static str, f64> {
 }
 
 /// A proposal's state (docs/design.md).
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum ProposalState {
     Draft,
@@ -161,7 +166,7 @@ impl ProposalState {
 }
 
 /// A review's verdict.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Verdict {
     Approve,

@@ -11,7 +11,7 @@ use serde::{Deserialize, Serialize};
 use super::number::Num;
 
 /// Which side of the axis is good.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Direction {
     HigherIsBetter,

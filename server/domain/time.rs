@@ -96,6 +96,22 @@ impl Serialize for Timestamp {
     }
 }
 
+/// In the API description: a string in the format above (RFC 3339 `date-time`).
+impl utoipa::PartialSchema for Timestamp {
+    fn schema() -> utoipa::openapi::RefOr<utoipa::openapi::schema::Schema> {
+        use utoipa::openapi::schema::{KnownFormat, ObjectBuilder, SchemaFormat, Type};
+        ObjectBuilder::new()
+            .schema_type(Type::String)
+            .format(Some(SchemaFormat::KnownFormat(KnownFormat::DateTime)))
+            .description(Some(
+                "A UTC instant, RFC 3339 with microseconds: 2026-03-01T09:30:00.000000Z",
+            ))
+            .into()
+    }
+}
+
+impl utoipa::ToSchema for Timestamp {}
+
 impl<'de> Deserialize<'de> for Timestamp {
     fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
         let text = String::deserialize(deserializer)?;

@@ -23,7 +23,7 @@ pub fn zones_of(direction: Direction) -> &'static [Zone] {
 }
 
 /// One cut set over a history.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Backtest {
     pub periods: usize,
     /// Periods in each zone the direction has (zero counts included).

@@ -6,7 +6,8 @@ use serde::Serialize;
 use crate::domain::number;
 use crate::domain::thresholds::{CutSet, Direction};
 
-#[derive(Clone, Debug, PartialEq, Serialize)]
+/// How one cut point moved between two versions.
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct CutChange {
     pub cut: &'static str,
     pub old: Option<f64>,
@@ -24,7 +25,8 @@ pub struct CutChange {
     pub relative_text: String,
 }
 
-#[derive(Clone, Debug, PartialEq, Serialize)]
+/// What one version changes against the one before it: the direction and each cut point.
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct FieldChanges {
     pub old_direction: Option<Direction>,
     pub new_direction: Direction,

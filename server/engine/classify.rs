@@ -7,7 +7,7 @@ use serde::Serialize;
 use crate::domain::thresholds::{CutSet, Direction, Shades};
 
 /// Where a value falls.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Zone {
     Critical,
@@ -45,21 +45,26 @@ impl Zone {
 }
 
 /// Which side of a target band a value left it on.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
+#[schema(as = BandSide)]
 pub enum Side {
     Low,
     High,
 }
 
-/// The engine's answer for one value. Field order is the order of the command line's output.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+/// The engine's answer for one value (docs/engine.md). A missing value is `no_data` with null
+/// severity, shade and signal. Field order is the order of the command line's output.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Classification {
     pub value: Option<f64>,
     pub zone: Zone,
+    /// 0 to 1 within intervene and outperform; 1 in critical and stretch; 0 in steady.
     pub severity: Option<f64>,
     pub shade: Option<u8>,
+    /// Negative on the bad side, positive on the good side, 0 in steady.
     pub signal: Option<i8>,
+    /// Present for target_band values outside steady.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub side: Option<Side>,
 }

@@ -17,7 +17,7 @@ pub const D4: f64 = 3.267;
 pub const LIMITS_MIN_POINTS: usize = 20;
 
 /// Percentiles the evidence reports, by the Hyndman & Fan (1996) type 7 definition.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Percentiles {
     pub p10: f64,
     pub p25: f64,
@@ -39,7 +39,7 @@ pub struct Summary {
 }
 
 /// Natural process limits of an individuals chart over a baseline.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct ProcessLimits {
     /// How many values the baseline holds.
     pub baseline_count: usize,

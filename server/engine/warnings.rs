@@ -14,7 +14,7 @@ use crate::domain::thresholds::{CutSet, Direction};
 pub const DEFAULT_CRITICAL_SHARE: f64 = 0.10;
 
 /// One warning.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Warning {
     /// Stable, for tools: `too_little_history`, `intervene_within_routine_variation`,
     /// `intervene_beyond_routine_variation`, `never_reached`, `critical_often`.

@@ -235,7 +235,7 @@ pub fn signoff_reasons(previous: Option<&CutSet>, changes: &FieldChanges) -> Vec
 }
 
 /// What approval still needs (`still_needed` in docs/design.md).
-#[derive(Clone, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 pub struct StillNeeded {
     /// More reviewer approvals needed.
     pub approvals: u32,

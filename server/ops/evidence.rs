@@ -1,12 +1,16 @@
 //! A metric's history as evidence: the statistics of a window, backtests of versions and
 //! proposals, and the warnings a reviewer needs (uploads are in `uploads`).
 
+use std::collections::BTreeMap;
+
 use serde::Serialize;
 
 use super::{OpError, OpResult};
+use crate::domain::Direction;
 use crate::domain::Metric;
 use crate::domain::Timestamp;
 use crate::domain::observations::Observation;
+use crate::domain::proposal::cuts_object;
 use crate::domain::thresholds::{CutSet, Shades};
 use crate::engine::backtest::{self, Backtest, Difference};
 use crate::engine::stats::{self, LIMITS_MIN_POINTS, ProcessLimits, Summary};
@@ -31,10 +35,10 @@ pub struct Subject {
     pub number: i64,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub proposal: Option<i64>,
-    #[schema(value_type = String)]
+    #[schema(value_type = Direction)]
     pub direction: &'static str,
-    #[schema(value_type = Object)]
-    pub cuts: serde_json::Value,
+    /// The four cut points by name.
+    pub cuts: BTreeMap<&'static str, f64>,
     pub shades: u8,
 }
 
@@ -44,17 +48,14 @@ pub struct BacktestView {
     #[serde(rename = "of")]
     pub subject: Subject,
     #[serde(flatten)]
-    #[schema(value_type = Object)]
     pub result: Backtest,
     /// What a reviewer should know about this cut set over the window.
-    #[schema(value_type = Vec<Object>)]
     pub warnings: Vec<Warning>,
 }
 
 /// A period where two cut sets disagree.
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct DifferenceView {
-    #[schema(value_type = String)]
     pub period_start: Timestamp,
     pub value: f64,
     /// Zone (and band side) under the first cut set, e.g. `intervene` or `critical (low)`.
@@ -66,23 +67,17 @@ pub struct DifferenceView {
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Evidence {
     pub metric: String,
-    #[schema(value_type = Option<String>)]
     pub from: Option<Timestamp>,
-    #[schema(value_type = Option<String>)]
     pub to: Option<Timestamp>,
     pub count: usize,
-    #[schema(value_type = Option<String>)]
     pub first_period: Option<Timestamp>,
-    #[schema(value_type = Option<String>)]
     pub last_period: Option<Timestamp>,
     pub mean: Option<f64>,
     pub sd: Option<f64>,
     pub min: Option<f64>,
     pub max: Option<f64>,
-    #[schema(value_type = Option<Object>)]
     pub percentiles: Option<stats::Percentiles>,
     /// Natural process limits over the window (null with fewer than two periods).
-    #[schema(value_type = Option<Object>)]
     pub limits: Option<ProcessLimits>,
     /// False with fewer than 20 periods (common practice in SPC texts).
     pub limits_dependable: bool,
@@ -144,17 +139,9 @@ fn subject_of_version(v: &VersionRecord) -> Subject {
         number: v.number,
         proposal: None,
         direction: v.content.direction().as_str(),
-        cuts: cuts_json(&v.content.cuts),
+        cuts: cuts_object(&v.content.cuts),
         shades: v.content.shades.get(),
     }
-}
-
-fn cuts_json(cuts: &CutSet) -> serde_json::Value {
-    cuts.named()
-        .iter()
-        .map(|(k, v)| ((*k).to_string(), serde_json::json!(v)))
-        .collect::<serde_json::Map<_, _>>()
-        .into()
 }
 
 /// The backtest of one cut set over a history, with its warnings.
@@ -270,7 +257,6 @@ pub struct ProposalBacktest {
     pub proposal: i64,
     pub metric: String,
     pub count: usize,
-    #[schema(value_type = Option<Object>)]
     pub limits: Option<ProcessLimits>,
     /// The proposal's revision (the latest unless the request named one).
     pub backtest: BacktestView,
@@ -315,7 +301,7 @@ pub async fn proposal_backtest(
             number: latest.number,
             proposal: Some(id),
             direction: content.direction().as_str(),
-            cuts: cuts_json(&content.cuts),
+            cuts: cuts_object(&content.cuts),
             shades: content.shades.get(),
         },
         cuts: &content.cuts,
@@ -343,7 +329,6 @@ pub async fn proposal_backtest(
 pub struct VersionBacktest {
     pub metric: String,
     pub count: usize,
-    #[schema(value_type = Option<Object>)]
     pub limits: Option<ProcessLimits>,
     pub backtest: BacktestView,
     pub compared_with: Option<BacktestView>,

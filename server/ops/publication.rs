@@ -3,8 +3,8 @@
 use serde::Serialize;
 
 use super::OpResult;
-use crate::domain::Timestamp;
 use crate::domain::proposal::cuts_object;
+use crate::domain::{Direction, Timestamp};
 use crate::store::versions::{self, VersionRecord};
 use std::sync::Arc;
 
@@ -13,16 +13,18 @@ use crate::publish::document::Rendered;
 use crate::store::{Store, StoreError};
 
 /// A version as a change list shows it.
-#[derive(Clone, Debug, Serialize)]
-pub struct Side {
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+pub struct ChangeSide {
     pub version: i64,
+    #[schema(value_type = Direction)]
     pub direction: &'static str,
+    /// The four cut points by name.
     pub cuts: std::collections::BTreeMap<&'static str, f64>,
     pub effective_from: Timestamp,
 }
 
-fn side(v: &VersionRecord) -> Side {
-    Side {
+fn side(v: &VersionRecord) -> ChangeSide {
+    ChangeSide {
         version: v.number,
         direction: v.content.direction().as_str(),
         cuts: cuts_object(&v.content.cuts),
@@ -30,14 +32,15 @@ fn side(v: &VersionRecord) -> Side {
     }
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A metric whose version differs between two set revisions.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct Change {
     pub metric: String,
     /// `added` (no version before), `changed`, or `removed` (never happens: versions are
     /// never withdrawn, but the list says so if it ever did).
     pub change: &'static str,
-    pub old: Option<Side>,
-    pub new: Option<Side>,
+    pub old: Option<ChangeSide>,
+    pub new: Option<ChangeSide>,
 }
 
 /// The time at which the set reached `revision` (None for revision 0: before anything).

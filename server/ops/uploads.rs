@@ -29,7 +29,6 @@ pub enum Uploader<'a> {
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct UploadReport {
     pub metric: String,
-    #[schema(value_type = String)]
     pub mode: Mode,
     /// Observations in the upload.
     pub rows: u64,

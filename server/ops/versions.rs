@@ -7,8 +7,8 @@ use serde::Serialize;
 
 use super::OpResult;
 use crate::domain::Metric;
-use crate::domain::Timestamp;
 use crate::domain::proposal::cuts_object;
+use crate::domain::{Direction, Timestamp};
 use crate::engine::canonical::unified_diff;
 use crate::engine::changes::{FieldChanges, compare};
 use crate::store::Store;
@@ -16,11 +16,13 @@ use crate::store::versions;
 pub use crate::store::versions::{VersionRecord, VersionStatus};
 
 /// A version as the API and pages show it.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct VersionView {
     pub number: i64,
     pub status: VersionStatus,
+    #[schema(value_type = Direction)]
     pub direction: &'static str,
+    /// The four cut points by name.
     pub cuts: BTreeMap<&'static str, f64>,
     pub shades: u8,
     pub unit: String,
@@ -40,6 +42,7 @@ pub struct VersionView {
     pub diff_from_previous: String,
     pub changes: FieldChanges,
     #[serde(skip)]
+    #[schema(ignore)]
     pub record: VersionRecord,
 }
 

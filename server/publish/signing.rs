@@ -136,13 +136,16 @@ fn write_key_file(path: &Path, signer: &Signer, replace: bool) -> StoreResult<()
         })
 }
 
-/// A registered public key.
-#[derive(Clone, Debug, Serialize)]
+/// A registered public key, current or retired.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct PublicKey {
+    /// `ed25519-` and the first 16 hex digits of the SHA-256 of the raw key.
     pub key_id: String,
+    /// `Ed25519`.
     pub algorithm: String,
-    /// The raw 32-byte Ed25519 public key, base64url without padding.
+    /// The raw 32-byte Ed25519 public key (RFC 8032), base64url without padding.
     pub public_key: String,
+    /// `current` or `retired`.
     pub status: &'static str,
     pub created_at: Timestamp,
     pub retired_at: Option<Timestamp>,

@@ -8,7 +8,7 @@ use sqlx::{Encode, Type};
 
 use super::{Actor, Store, StoreError, StoreResult, WriteTx, sql};
 use crate::domain::metric::MetricFields;
-use crate::domain::{Metric, MetricKey, Owner, Problems, Role, Username};
+use crate::domain::{Metric, MetricKey, PersonRef, Problems, Role, Username};
 
 /// A change to some descriptive fields; `None` leaves a field as it is.
 #[derive(Clone, Debug, Default)]
@@ -93,7 +93,7 @@ async fn attach_owners_and_tags(
     for row in owners_query.fetch_all(&mut *conn).await? {
         let id: i64 = row.try_get("metric_id")?;
         if let Some(m) = metrics.iter_mut().find(|m| m.id == id) {
-            m.owners.push(Owner {
+            m.owners.push(PersonRef {
                 username: row.try_get("username")?,
                 display_name: row.try_get("display_name")?,
             });
@@ -218,7 +218,10 @@ pub async fn list(
 }
 
 /// Resolves owners to user ids; each must exist, be active and hold the `owner` role.
-async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec<(i64, Owner)>> {
+async fn resolve_owners(
+    w: &mut WriteTx,
+    owners: &[Username],
+) -> StoreResult<Vec<(i64, PersonRef)>> {
     let mut problems = Problems::default();
     let mut out = Vec::new();
     for name in owners {
@@ -250,7 +253,7 @@ async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec
                 } else {
                     out.push((
                         row.try_get("id")?,
-                        Owner {
+                        PersonRef {
                             username: row.try_get("username")?,
                             display_name: row.try_get("display_name")?,
                         },
@@ -266,7 +269,11 @@ async fn resolve_owners(w: &mut WriteTx, owners: &[Username]) -> StoreResult<Vec
     }
 }
 
-async fn write_owners(w: &mut WriteTx, metric_id: i64, owners: &[(i64, Owner)]) -> StoreResult<()> {
+async fn write_owners(
+    w: &mut WriteTx,
+    metric_id: i64,
+    owners: &[(i64, PersonRef)],
+) -> StoreResult<()> {
     let user_ids: Vec<i64> = owners.iter().map(|(user_id, _)| *user_id).collect();
     write_list(w, metric_id, "metric_owners", "user_id", &user_ids).await
 }

@@ -13,7 +13,7 @@ use crate::domain::Timestamp;
 use crate::domain::proposal::ThresholdContent;
 
 /// A version's place in time, seen from one instant.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum VersionStatus {
     /// Approved, effective time still ahead.

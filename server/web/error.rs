@@ -5,10 +5,10 @@ use axum::Json;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{Html, IntoResponse, Response};
 use serde::Serialize;
-use serde_json::json;
 
 use super::layout::{Common, PageData, render};
 use crate::domain::Problems;
+use crate::domain::observations::RowProblem;
 use crate::ops::OpError;
 
 /// An error answer: status, a stable machine code, a message for people, and for validation
@@ -20,7 +20,7 @@ pub struct ApiError {
     pub message: String,
     pub fields: Option<Problems>,
     /// For uploads: each bad line or item and why.
-    pub rows: Option<Vec<crate::domain::observations::RowProblem>>,
+    pub rows: Option<Vec<RowProblem>>,
     pub retry_after: Option<u64>,
 }
 
@@ -156,15 +156,50 @@ impl From<OpError> for ApiError {
     }
 }
 
+/// The body of every error answer of the API.
+#[derive(Debug, Serialize, utoipa::ToSchema)]
+pub struct ErrorBody {
+    pub error: ErrorDetail,
+}
+
+/// What went wrong.
+#[derive(Debug, Serialize, utoipa::ToSchema)]
+pub struct ErrorDetail {
+    /// A stable code: bad_request, bad_json, invalid, invalid_rows, unauthorized, forbidden,
+    /// not_found, conflict, too_large, unsupported_media_type, throttled, busy, unavailable, ...
+    pub code: &'static str,
+    /// What went wrong, for people.
+    pub message: String,
+    /// Each invalid input field with what is wrong with it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fields: Option<Problems>,
+    /// For uploads: each bad line or item and why.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub rows: Option<Vec<RowProblem>>,
+}
+
+impl ErrorDetail {
+    /// A code and a message, naming no field.
+    pub fn new(code: &'static str, message: impl Into<String>) -> ErrorDetail {
+        ErrorDetail {
+            code,
+            message: message.into(),
+            fields: None,
+            rows: None,
+        }
+    }
+}
+
 impl IntoResponse for ApiError {
     fn into_response(self) -> Response {
-        let mut body = json!({"error": {"code": self.code, "message": self.message}});
-        if let Some(fields) = &self.fields {
-            body["error"]["fields"] = json!(fields);
-        }
-        if let Some(rows) = &self.rows {
-            body["error"]["rows"] = json!(rows);
-        }
+        let body = ErrorBody {
+            error: ErrorDetail {
+                code: self.code,
+                message: self.message,
+                fields: self.fields,
+                rows: self.rows,
+            },
+        };
         let mut response = (self.status, Json(body)).into_response();
         if let Some(seconds) = self.retry_after {
             response

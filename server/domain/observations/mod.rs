@@ -17,7 +17,7 @@ use super::Timestamp;
 use super::csv_out::{Cell, CsvOut};
 
 /// One period of history.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Observation {
     pub period_start: Timestamp,
     pub value: f64,
@@ -127,7 +127,9 @@ pub fn to_csv(rows: &[Observation]) -> Vec<u8> {
 }
 
 /// How an upload meets the history already stored.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[derive(
+    Clone, Copy, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize, utoipa::ToSchema,
+)]
 #[serde(rename_all = "snake_case")]
 pub enum Mode {
     /// Add new periods; give periods already stored their uploaded value.

@@ -13,20 +13,24 @@ use crate::store::versions::{self};
 use crate::store::{Store, policy};
 
 /// A line in someone's inbox.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct InboxItem {
+    /// The proposal's id.
     pub proposal: i64,
+    /// The metric's key.
     pub metric: String,
     pub state: ProposalState,
     pub updated_at: Timestamp,
+    /// What it waits for, in words.
     pub why: String,
 }
 
 /// Proposals waiting for this person: to review, to sign off, or (as owner) to act on.
-#[derive(Clone, Debug, Default, Serialize)]
+#[derive(Clone, Debug, Default, Serialize, utoipa::ToSchema)]
 pub struct Inbox {
     pub to_review: Vec<InboxItem>,
     pub to_sign: Vec<InboxItem>,
+    /// Proposals the person wrote or whose metric they own.
     pub mine: Vec<InboxItem>,
 }
 

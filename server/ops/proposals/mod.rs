@@ -26,11 +26,8 @@ pub use views::{
     compared_version, for_revision, get,
 };
 
-use serde_json::json;
-
 use super::{OpError, OpResult};
 use crate::domain::Metric;
-use crate::domain::Person;
 use crate::domain::Problems;
 use crate::domain::User;
 use crate::engine::workflow::{self, Refusal};
@@ -48,10 +45,6 @@ fn single(field: &str, message: impl Into<String>) -> OpError {
     let mut p = Problems::default();
     p.add(field, message.into());
     OpError::Invalid(p)
-}
-
-fn person_json(p: &Person) -> serde_json::Value {
-    json!({"username": p.username, "display_name": p.display_name})
 }
 
 fn actor_of(user: &User) -> Actor {

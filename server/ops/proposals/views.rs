@@ -7,12 +7,12 @@ use serde::Serialize;
 use super::approval::{
     changes_and_reasons, counted_approvals, counted_signoff, decision, still_needed,
 };
+use super::rules_actor;
 use super::steps::revised_since_sent_back;
-use super::{person_json, rules_actor};
 use crate::domain::Timestamp;
 use crate::domain::proposal::Verdict as V;
 use crate::domain::proposal::{ProposalState, Verdict, cuts_object};
-use crate::domain::{Metric, User};
+use crate::domain::{Direction, Metric, PersonRef, User};
 use crate::engine::changes::FieldChanges;
 use crate::engine::workflow;
 use crate::engine::workflow::StillNeeded;
@@ -23,7 +23,7 @@ use crate::store::{Store, StoreError, metrics, policy};
 
 /// What the reader may do next with the proposal as it stands, decided by the workflow's
 /// rules from ids (the same rules each step applies when it is taken).
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 pub struct Allowed {
     /// Save a new revision.
     pub revise: bool,
@@ -35,7 +35,9 @@ pub struct Allowed {
     pub send_back: bool,
     /// Sign the latest revision off.
     pub sign: bool,
+    /// Withdraw it (its author).
     pub withdraw: bool,
+    /// Reject it, with a reason.
     pub reject: bool,
 }
 
@@ -62,10 +64,14 @@ impl Allowed {
     }
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// One revision of a proposal: its content, how it differs from the one before and from the
+/// version it was compared with, and who wrote it.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct RevisionView {
     pub number: i64,
+    /// The SHA-256 of the revision's canonical text: what reviews and sign-offs name.
     pub hash: String,
+    #[schema(value_type = Direction)]
     pub direction: &'static str,
     pub cuts: BTreeMap<&'static str, f64>,
     pub shades: u8,
@@ -78,13 +84,14 @@ pub struct RevisionView {
     pub base_version: Option<i64>,
     pub diff_from_base: String,
     pub note: String,
-    pub author: serde_json::Value,
+    pub author: PersonRef,
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A reviewer's verdict on a revision.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct ReviewView {
-    pub reviewer: serde_json::Value,
+    pub reviewer: PersonRef,
     pub verdict: Verdict,
     pub revision_number: i64,
     pub revision_hash: String,
@@ -96,9 +103,10 @@ pub struct ReviewView {
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A signatory's sign-off of a revision.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct SignoffView {
-    pub signer: serde_json::Value,
+    pub signer: PersonRef,
     /// The display name frozen at signing.
     pub signed_as: String,
     pub meaning: String,
@@ -109,28 +117,34 @@ pub struct SignoffView {
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug, Serialize)]
+/// A comment on a revision, about the whole of it or one cut point.
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct CommentView {
-    pub author: serde_json::Value,
+    pub author: PersonRef,
+    /// The cut point it is about, by name, if one.
     pub cut: Option<String>,
     pub body: String,
     pub revision_number: i64,
     pub created_at: Timestamp,
 }
 
-/// A proposal as the API answers it and the page shows it.
-#[derive(Clone, Debug, Serialize)]
+/// A proposal as the API answers it and the page shows it: its revisions with their diffs,
+/// reviews, sign-offs, comments, what approval still needs and what the caller may do next
+/// (docs/workflow.md).
+#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct ProposalView {
     pub id: i64,
+    /// The metric's key.
     pub metric: String,
     pub state: ProposalState,
-    pub author: serde_json::Value,
+    pub author: PersonRef,
     pub created_at: Timestamp,
     pub updated_at: Timestamp,
     pub closed_at: Option<Timestamp>,
     pub close_reason: String,
     /// The revision that was sent back, if it was: resubmitting needs a later one.
     pub sent_back_revision: Option<i64>,
+    /// The version it became, once approved.
     pub version: Option<i64>,
     pub latest_revision: RevisionView,
     pub revisions: Vec<RevisionView>,
@@ -142,7 +156,9 @@ pub struct ProposalView {
     /// The version the latest revision is compared with, if any.
     pub compared_with_version: Option<i64>,
     pub still_needed: StillNeeded,
+    /// `still_needed` in words.
     pub still_needed_text: String,
+    /// Reviewer approvals the policy asks for.
     pub reviewers_required: u32,
     /// What the caller may do next; absent when read without a caller (the command line).
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -164,7 +180,7 @@ fn revision_view(r: &crate::store::proposals::RevisionRecord) -> RevisionView {
         base_version: r.base_version,
         diff_from_base: r.diff_from_base.clone(),
         note: r.note.clone(),
-        author: person_json(&r.author),
+        author: PersonRef::from(&r.author),
         created_at: r.created_at,
     }
 }
@@ -231,7 +247,7 @@ fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>
         id: p.id,
         metric: p.metric_key.clone(),
         state: p.state,
-        author: person_json(&p.author),
+        author: PersonRef::from(&p.author),
         created_at: p.created_at,
         updated_at: p.updated_at,
         closed_at: p.closed_at,
@@ -244,7 +260,7 @@ fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>
             .reviews
             .iter()
             .map(|r| ReviewView {
-                reviewer: person_json(&r.reviewer),
+                reviewer: PersonRef::from(&r.reviewer),
                 verdict: r.verdict,
                 revision_number: r.revision_number,
                 revision_hash: r.revision_hash.clone(),
@@ -261,7 +277,7 @@ fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>
             .signoffs
             .iter()
             .map(|s| SignoffView {
-                signer: person_json(&s.signer),
+                signer: PersonRef::from(&s.signer),
                 signed_as: s.signer_name.clone(),
                 meaning: s.meaning.clone(),
                 revision_number: s.revision_number,
@@ -275,7 +291,7 @@ fn view(bundle: &ProposalBundle, required: u32, previous: Option<&VersionRecord>
             .comments
             .iter()
             .map(|c| CommentView {
-                author: person_json(&c.author),
+                author: PersonRef::from(&c.author),
                 cut: c.cut.clone(),
                 body: c.body.clone(),
                 revision_number: c.revision_number,

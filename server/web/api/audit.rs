@@ -7,11 +7,11 @@ use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
 use super::metrics::KeyPath;
-use super::openapi::{AuditView, ErrorBody};
+use super::openapi::{BadRequest, Forbidden, NotFound, Unauthenticated, Unavailable};
 use crate::domain::MetricKey;
 use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::EventFilter;
-use crate::ops::audit::{self, Extract};
+use crate::ops::audit::{self, AsOf, Exceptions, Extract, Timeline, Verification};
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;
@@ -68,7 +68,8 @@ impl ExtractQuery {
 
 /// `GET /api/v1/audit`: a page of events with a summary for checking completeness.
 #[utoipa::path(get, path = "/v1/audit", operation_id = "listEvents", tag = "audit", params(ExtractQuery),
-    responses((status = 200, description = "A page of events with a summary for checking completeness", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "A page of events with a summary for checking completeness", body = Extract),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn events(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -163,7 +164,8 @@ pub fn extract_csv(x: &Extract) -> Vec<u8> {
 
 /// `GET /api/v1/audit.csv`.
 #[utoipa::path(get, path = "/v1/audit.csv", operation_id = "listEventsCsv", tag = "audit", params(ExtractQuery),
-    responses((status = 200, description = "The events as RFC 4180 CSV; the summary in response headers", body = String, content_type = "text/csv"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "The events as RFC 4180 CSV; the summary in response headers", body = String, content_type = "text/csv"),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn events_csv(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -202,36 +204,43 @@ fn known_head(text: &str) -> Result<Option<(i64, String)>, ApiError> {
 
 /// `GET /api/v1/audit/verify[?known_head=SEQ:HASH]`.
 #[utoipa::path(get, path = "/v1/audit/verify", operation_id = "verifyAuditChain", tag = "audit", params(VerifyQuery),
-    responses((status = 200, description = "Whether the chain holds, and the first broken event if not", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "Whether the chain holds, and the first broken event if not", body = Verification),
+        BadRequest, Unauthenticated, Forbidden, Unavailable))]
 pub async fn verify(
     State(state): State<AppState>,
     caller: ApiCaller,
     ApiQuery(q): ApiQuery<VerifyQuery>,
-) -> Result<Response, ApiError> {
+) -> Result<Json<Verification>, ApiError> {
     let known = known_head(&q.known_head)?;
-    Ok(Json(audit::verify(&state.store, caller.user(), known).await?).into_response())
+    Ok(Json(
+        audit::verify(&state.store, caller.user(), known).await?,
+    ))
 }
 
 /// `GET /api/v1/audit/exceptions`.
 #[utoipa::path(get, path = "/v1/audit/exceptions", operation_id = "listExceptions", tag = "audit",
-    responses((status = 200, description = "Versions approved without a sign-off, refusals and other exceptions", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "Versions approved without a sign-off, refusals and other exceptions", body = Exceptions),
+        Unauthenticated, Forbidden, Unavailable))]
 pub async fn exceptions(
     State(state): State<AppState>,
     caller: ApiCaller,
-) -> Result<Response, ApiError> {
-    Ok(Json(audit::exceptions(&state.store, caller.user()).await?).into_response())
+) -> Result<Json<Exceptions>, ApiError> {
+    Ok(Json(audit::exceptions(&state.store, caller.user()).await?))
 }
 
 /// `GET /api/v1/audit/metrics/{key}`: why did it move.
 #[utoipa::path(get, path = "/v1/audit/metrics/{key}", operation_id = "getMetricTimeline", tag = "audit",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+    responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = Timeline),
+        BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
 pub async fn timeline(
     State(state): State<AppState>,
     caller: ApiCaller,
     KeyPath(key): KeyPath,
-) -> Result<Response, ApiError> {
-    Ok(Json(audit::timeline(&state.store, caller.user(), key.as_str()).await?).into_response())
+) -> Result<Json<Timeline>, ApiError> {
+    Ok(Json(
+        audit::timeline(&state.store, caller.user(), key.as_str()).await?,
+    ))
 }
 
 #[derive(Deserialize, Default, utoipa::IntoParams)]
@@ -248,12 +257,13 @@ pub struct AsOfQuery {
 
 /// `GET /api/v1/audit/as-of?as_of=T&known_at=R[&metric=KEY]`.
 #[utoipa::path(get, path = "/v1/audit/as-of", operation_id = "getVersionsAsOf", tag = "audit", params(AsOfQuery),
-    responses((status = 200, description = "The versions in force at a valid time, as known at a transaction time", body = AuditView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody)))]
+    responses((status = 200, description = "The versions in force at a valid time, as known at a transaction time", body = AsOf),
+        BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
 pub async fn as_of(
     State(state): State<AppState>,
     caller: ApiCaller,
     ApiQuery(q): ApiQuery<AsOfQuery>,
-) -> Result<Response, ApiError> {
+) -> Result<Json<AsOf>, ApiError> {
     let as_of = time_param("as_of", &q.as_of)?;
     let known_at = time_param("known_at", &q.known_at)?;
     let key = if q.metric.trim().is_empty() {
@@ -269,5 +279,5 @@ pub async fn as_of(
         key.as_ref().map(|k| k.as_str()),
     )
     .await?;
-    Ok(Json(view).into_response())
+    Ok(Json(view))
 }

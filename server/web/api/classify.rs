@@ -6,7 +6,7 @@ use std::collections::BTreeMap;
 use axum::Json;
 use serde::{Deserialize, Serialize};
 
-use super::openapi::{ClassifyResults, ErrorBody};
+use super::openapi::{BadRequest, Forbidden, NotJson, TooLarge, Unauthenticated, Unavailable};
 use crate::domain::Problems;
 use crate::domain::thresholds::{CutSet, Direction, Shades};
 use crate::engine::{Classification, classify_all};
@@ -32,14 +32,17 @@ pub struct ClassifyRequest {
     values: Vec<Option<f64>>,
 }
 
-#[derive(Serialize)]
+/// The values classified.
+#[derive(Serialize, utoipa::ToSchema)]
 pub struct ClassifyResponse {
+    /// One per value, in order.
     results: Vec<Classification>,
 }
 
 #[utoipa::path(post, path = "/v1/classify", operation_id = "classifyValues", tag = "engine",
     request_body = ClassifyRequest,
-    responses((status = 200, description = "One classification per value, in order", body = ClassifyResults), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 413, description = "Body too large", body = ErrorBody)))]
+    responses((status = 200, description = "One classification per value, in order", body = ClassifyResponse),
+        BadRequest, Unauthenticated, Forbidden, TooLarge, NotJson, Unavailable))]
 pub async fn classify(
     _caller: ApiCaller,
     ApiJson(req): ApiJson<ClassifyRequest>,

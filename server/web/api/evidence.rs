@@ -9,7 +9,7 @@ use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
 use super::metrics::KeyPath;
-use super::openapi::ErrorBody;
+use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
 use crate::domain::observations::Mode;
@@ -18,7 +18,7 @@ use crate::ops::evidence::{self, Evidence, ProposalBacktest, VersionBacktest, Wi
 use crate::ops::uploads::{self, Format, UploadReport, Uploader};
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::{ApiQuery, read_body, time_param};
 
 /// The window and the critical share a reader chose.
@@ -82,11 +82,12 @@ pub fn mode(text: Option<&str>) -> Result<Mode, ApiError> {
     responses(
         (status = 200, description = "Stored, and recorded as an event", body = UploadReport),
         (status = 400, description = "Bad lines (each in error.rows with its line or item number and reason; nothing was changed), or a malformed request", body = ErrorBody),
-        (status = 401, description = "No valid credential", body = ErrorBody),
+        Unauthenticated,
         (status = 403, description = "Only the metric's owners or an admin may upload; read-scope tokens may not", body = ErrorBody),
-        (status = 404, description = "No such metric", body = ErrorBody),
+        NotFound,
         (status = 413, description = "Larger than the upload limit", body = ErrorBody),
         (status = 415, description = "Neither CSV nor JSON", body = ErrorBody),
+        Unavailable,
     ))]
 pub async fn upload(
     State(state): State<AppState>,
@@ -132,15 +133,17 @@ pub async fn upload(
 /// A window of the stored history.
 #[derive(Serialize, utoipa::ToSchema)]
 pub struct ObservationList {
+    /// The metric's key.
     pub metric: String,
-    #[schema(value_type = Vec<Object>)]
+    /// Oldest first.
     pub observations: Vec<Observation>,
 }
 
 /// `GET /api/v1/metrics/{key}/observations`: the stored history, oldest first.
 #[utoipa::path(get, path = "/v1/metrics/{key}/observations", operation_id = "listObservations", tag = "evidence",
     params(("key" = String, Path, description = "Metric key"), WindowQuery),
-    responses((status = 200, description = "The history in the window, oldest first", body = ObservationList), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+    responses((status = 200, description = "The history in the window, oldest first", body = ObservationList),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -159,7 +162,8 @@ pub async fn observations(
 /// format the upload reads.
 #[utoipa::path(get, path = "/v1/metrics/{key}/observations.csv", operation_id = "downloadObservations", tag = "evidence",
     params(("key" = String, Path, description = "Metric key"), WindowQuery),
-    responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+    responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations_csv(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -188,7 +192,8 @@ pub async fn observations_csv(
 /// in force's backtest over a window.
 #[utoipa::path(get, path = "/v1/metrics/{key}/evidence", operation_id = "getEvidence", tag = "evidence",
     params(("key" = String, Path, description = "Metric key"), WindowQuery),
-    responses((status = 200, description = "The evidence over the window", body = Evidence), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric", body = ErrorBody)))]
+    responses((status = 200, description = "The evidence over the window", body = Evidence),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -223,7 +228,8 @@ pub struct ProposalQuery {
 /// named) and the version it would replace, over the history.
 #[utoipa::path(get, path = "/v1/proposals/{id}/backtest", operation_id = "getProposalBacktest", tag = "evidence",
     params(("id" = i64, Path, description = "Proposal id"), ProposalQuery),
-    responses((status = 200, description = "Both backtests and the periods where they differ", body = ProposalBacktest), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such proposal or revision", body = ErrorBody)))]
+    responses((status = 200, description = "Both backtests and the periods where they differ", body = ProposalBacktest),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn proposal(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -273,7 +279,8 @@ pub struct VersionQuery {
 /// scheduled) over the history, optionally beside another.
 #[utoipa::path(get, path = "/v1/metrics/{key}/versions/{number}/backtest", operation_id = "getVersionBacktest", tag = "evidence",
     params(("key" = String, Path, description = "Metric key"), ("number" = i64, Path, description = "Version number"), VersionQuery),
-    responses((status = 200, description = "The backtest, and the comparison when asked", body = VersionBacktest), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or version", body = ErrorBody)))]
+    responses((status = 200, description = "The backtest, and the comparison when asked", body = VersionBacktest),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn version(
     State(state): State<AppState>,
     _caller: ApiCaller,

@@ -5,18 +5,20 @@ use axum::extract::{FromRequestParts, Path, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 
-use super::openapi::{ErrorBody, MetricDetail};
-use serde_json::json;
-
-use crate::domain::MetricKey;
+use super::openapi::{
+    BadRequest, Forbidden, NotFound, NotJson, TooLarge, Unauthenticated, Unavailable,
+};
+use crate::domain::proposal::ProposalState;
+use crate::domain::{Metric, MetricKey};
 use crate::ops;
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, NewMetric};
+use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::{ApiJson, ApiQuery};
 
 /// A metric key taken from the path, validated (400 for a malformed key, in JSON).
@@ -39,10 +41,10 @@ impl FromRequestParts<AppState> for KeyPath {
 #[utoipa::path(post, path = "/v1/metrics", operation_id = "createMetric", tag = "register",
     request_body = NewMetric,
     responses(
-        (status = 201, description = "Created; Location names it", body = crate::domain::Metric),
-        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody),
+        (status = 201, description = "Created; Location names it", body = Metric),
+        BadRequest, Unauthenticated, Forbidden,
         (status = 409, description = "A metric with this key exists", body = ErrorBody),
-
+        TooLarge, NotJson, Unavailable,
     ))]
 pub async fn create(
     State(state): State<AppState>,
@@ -77,7 +79,8 @@ pub struct ListQuery {
 
 /// `GET /api/v1/metrics`: the register, a page at a time.
 #[utoipa::path(get, path = "/v1/metrics", operation_id = "listMetrics", tag = "register", params(ListQuery),
-    responses((status = 200, description = "A page of the register", body = metrics::MetricPage), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "A page of the register", body = metrics::MetricPage),
+        BadRequest, Unauthenticated, Unavailable))]
 pub async fn list(
     State(state): State<AppState>,
     _caller: ApiCaller,
@@ -104,41 +107,65 @@ pub async fn list(
     ))
 }
 
+/// A metric with the version in force, the scheduled one and the open proposal, if any.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct MetricDetail {
+    #[serde(flatten)]
+    pub metric: Metric,
+    /// The version in force now, if any.
+    pub version_in_force: Option<VersionView>,
+    /// The next version, approved with a later effective time.
+    pub scheduled_version: Option<VersionView>,
+    pub open_proposal: Option<OpenProposal>,
+}
+
+/// The metric's open proposal, and where to read it.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct OpenProposal {
+    pub id: i64,
+    pub state: ProposalState,
+    /// `/api/v1/proposals/{id}`.
+    pub url: String,
+}
+
 /// `GET /api/v1/metrics/{key}`: a metric with its version in force.
 #[utoipa::path(get, path = "/v1/metrics/{key}", operation_id = "getMetric", tag = "register",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "The metric", body = MetricDetail), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The metric", body = MetricDetail),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
     State(state): State<AppState>,
     _caller: ApiCaller,
     KeyPath(key): KeyPath,
-) -> Result<Response, ApiError> {
+) -> Result<Json<MetricDetail>, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
     let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
     let (in_force, scheduled) = crate::ops::versions::current(&thresholds.history);
-    let open = thresholds.open_proposal();
-    let mut body = json!(metric);
-    body["version_in_force"] = json!(in_force);
-    body["scheduled_version"] = json!(scheduled);
-    body["open_proposal"] = json!(open.map(|p| json!({
-        "id": p.id,
-        "state": p.state,
-        "url": format!("/api/v1/proposals/{}", p.id),
-    })));
-    Ok(Json(body).into_response())
+    let open_proposal = thresholds.open_proposal().map(|p| OpenProposal {
+        id: p.id,
+        state: p.state,
+        url: format!("/api/v1/proposals/{}", p.id),
+    });
+    Ok(Json(MetricDetail {
+        version_in_force: in_force.cloned(),
+        scheduled_version: scheduled.cloned(),
+        open_proposal,
+        metric,
+    }))
 }
 
 /// `PATCH /api/v1/metrics/{key}`: changes descriptive fields; absent fields stay.
 #[utoipa::path(patch, path = "/v1/metrics/{key}", operation_id = "editMetric", tag = "register",
     params(("key" = String, Path, description = "Metric key")),
     request_body = MetricEdit,
-    responses((status = 200, description = "The metric as changed", body = crate::domain::Metric), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The metric as changed", body = Metric),
+        BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn edit(
     State(state): State<AppState>,
     caller: ApiCaller,
     KeyPath(key): KeyPath,
     ApiJson(input): ApiJson<MetricEdit>,
-) -> Result<Json<crate::domain::Metric>, ApiError> {
+) -> Result<Json<Metric>, ApiError> {
     Ok(Json(
         ops::metrics::edit(&state.store, caller.user(), key.as_str(), &input).await?,
     ))

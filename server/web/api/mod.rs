@@ -9,31 +9,43 @@ pub mod proposals;
 pub mod published;
 
 use axum::Json;
-use axum::response::{IntoResponse, Response};
-use serde_json::json;
+use serde::Serialize;
 
 use super::auth::{ApiCaller, Credential};
 use super::error::ApiError;
-use crate::domain::Role;
+use crate::domain::{Role, Username};
+use openapi::{Unauthenticated, Unavailable};
+
+/// Who the credentials belong to.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct Me {
+    #[schema(value_type = String)]
+    pub username: Username,
+    pub display_name: String,
+    pub roles: Vec<Role>,
+    /// `session`, or `token (read scope)` / `token (write scope)`.
+    pub credential: String,
+    /// For a browser session, the token scripts send in `X-CSRF-Token`; null for tokens.
+    pub csrf_token: Option<String>,
+}
 
 /// `GET /api/v1/me`: who the credentials belong to, and for a browser session the CSRF token
 /// that scripts must send in `X-CSRF-Token`.
 #[utoipa::path(get, path = "/v1/me", operation_id = "getMe", tag = "service",
-    responses((status = 200, description = "The caller", body = openapi::Me), (status = 401, description = "No valid credential", body = openapi::ErrorBody)))]
-pub async fn me(caller: ApiCaller) -> Response {
+    responses((status = 200, description = "The caller", body = Me), Unauthenticated, Unavailable))]
+pub async fn me(caller: ApiCaller) -> Json<Me> {
     let user = caller.user();
-    let (via, csrf) = match &caller.0 {
-        Credential::Session(s) => ("session", Some(s.csrf_token.clone())),
-        Credential::Token { scope, .. } => (scope.as_str(), None),
+    let (credential, csrf_token) = match &caller.0 {
+        Credential::Session(s) => ("session".to_string(), Some(s.csrf_token.clone())),
+        Credential::Token { scope, .. } => (format!("token ({} scope)", scope.as_str()), None),
     };
-    Json(json!({
-        "username": user.username,
-        "display_name": user.display_name,
-        "roles": user.roles.iter().map(Role::as_str).collect::<Vec<_>>(),
-        "credential": if via == "session" { "session".to_string() } else { format!("token ({via} scope)") },
-        "csrf_token": csrf,
-    }))
-    .into_response()
+    Json(Me {
+        username: user.username.clone(),
+        display_name: user.display_name.clone(),
+        roles: user.roles.iter().collect(),
+        credential,
+        csrf_token,
+    })
 }
 
 /// Unknown paths under `/api` answer in JSON too.

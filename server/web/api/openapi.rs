@@ -2,11 +2,11 @@
 //! router that serves them (so a route cannot exist without its description), served at
 //! `GET /api/v1/openapi.json` and committed as `docs/openapi.json`.
 //!
-//! Request bodies and most response bodies are described by the types that carry them. The
-//! published set is described by `docs/schema/published-set.schema.json` itself, included
-//! here, so the two cannot disagree. Responses that handlers assemble as JSON values are
-//! described by the schema types below; tests validate real responses against them with a
-//! reference validator, so they cannot drift unnoticed.
+//! Request and response bodies are described by the types that carry them, so a field cannot
+//! be added or dropped without the description following; tests also validate real responses
+//! against it with a reference validator. The published set is described by
+//! `docs/schema/published-set.schema.json` itself, included here, so the two cannot disagree.
+//! The error answers operations share are described once, below.
 
 use std::collections::BTreeMap;
 use std::sync::OnceLock;
@@ -15,7 +15,9 @@ use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
 use serde_json::{Value, json};
 use utoipa::openapi::security::{ApiKey, ApiKeyValue, HttpAuthScheme, HttpBuilder, SecurityScheme};
-use utoipa::{Modify, OpenApi, ToSchema};
+use utoipa::{IntoResponses, Modify, OpenApi};
+
+use crate::web::error::ErrorBody;
 
 /// The committed JSON Schema of the published set.
 const PUBLISHED_SET_SCHEMA: &str = include_str!("../../../docs/schema/published-set.schema.json");
@@ -35,6 +37,7 @@ const PUBLISHED_SET_SCHEMA: &str = include_str!("../../../docs/schema/published-
             codes and licensed practice.",
         license(name = "Proprietary"),
     ),
+    components(schemas(ErrorBody)),
     modifiers(&Security),
     security(("bearer" = []), ("session" = [])),
     tags(
@@ -186,251 +189,34 @@ pub async fn openapi_json() -> Response {
         .into_response()
 }
 
-// Schemas of responses that handlers assemble as JSON values. Tests validate real responses
-// against these.
-
-/// An error. `fields` lists each invalid input field with what is wrong with it.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ErrorBody {
-    error: ErrorDetail,
+/// Declares the error answers operations share, as one table: for each, a type named for the
+/// answer (an operation lists it by name in `responses(...)`), its status, its description,
+/// and for answers that say when to try again, what their Retry-After header holds. Each
+/// answers the error body.
+macro_rules! error_answers {
+    ($($name:ident = $status:tt, $description:tt $(, retry_after $seconds:tt)?;)+) => {$(
+        #[doc = $description]
+        #[derive(IntoResponses)]
+        #[response(
+            status = $status
+            $(, headers(("Retry-After" = u64, description = $seconds)))?
+        )]
+        pub struct $name(pub ErrorBody);
+    )+};
 }
 
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ErrorDetail {
-    /// A stable code: bad_request, invalid, unauthorized, forbidden, not_found, conflict,
-    /// too_large, too_many_requests, ...
-    code: String,
-    message: String,
-    #[schema(required = false)]
-    fields: Option<Vec<FieldProblem>>,
-}
-
-/// What is wrong with one input field.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct FieldProblem {
-    field: String,
-    message: String,
-}
-
-/// Who the credentials belong to.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct Me {
-    username: String,
-    display_name: String,
-    roles: Vec<String>,
-    /// `session`, or `token (read scope)` / `token (write scope)`.
-    credential: String,
-    /// For a browser session, the token scripts send in `X-CSRF-Token`; null for tokens.
-    csrf_token: Option<String>,
-}
-
-/// Where a value falls.
-#[derive(ToSchema, serde::Serialize)]
-#[schema(rename_all = "snake_case")]
-#[allow(dead_code)]
-pub enum Zone {
-    Critical,
-    Intervene,
-    Steady,
-    Outperform,
-    Stretch,
-    NoData,
-}
-
-/// Which side of a target band a value left it on.
-#[derive(ToSchema, serde::Serialize)]
-#[schema(rename_all = "snake_case")]
-#[allow(dead_code)]
-pub enum BandSide {
-    Low,
-    High,
-}
-
-/// The engine's answer for one value (docs/engine.md). A missing value is `no_data` with
-/// null severity, shade and signal.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct Classification {
-    value: Option<f64>,
-    zone: Zone,
-    /// 0 to 1 within intervene and outperform; 1 in critical and stretch; 0 in steady.
-    severity: Option<f64>,
-    #[schema(minimum = 0)]
-    shade: Option<u8>,
-    /// Negative on the bad side, positive on the good side, 0 in steady.
-    signal: Option<i8>,
-    /// Present for target_band values outside steady.
-    #[schema(required = false)]
-    side: Option<BandSide>,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ClassifyResults {
-    /// One per value, in order.
-    results: Vec<Classification>,
-}
-
-/// One value's answer from evaluate: a classification, or an error for this item only.
-#[derive(ToSchema, serde::Serialize)]
-#[serde(untagged)]
-#[allow(dead_code)]
-pub enum EvaluateResult {
-    Classified(EvaluateClassified),
-    Failed(EvaluateFailed),
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct EvaluateClassified {
-    metric: String,
-    value: Option<f64>,
-    zone: Zone,
-    severity: Option<f64>,
-    #[schema(minimum = 0)]
-    shade: Option<u8>,
-    signal: Option<i8>,
-    #[schema(required = false)]
-    side: Option<BandSide>,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct EvaluateFailed {
-    metric: String,
-    value: Option<f64>,
-    /// `unknown_metric` or `no_version`.
-    error: ErrorDetail,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct EvaluateResponse {
-    /// The set revision the values were classified against.
-    set_revision: i64,
-    /// That set's `meta.digest`.
-    digest: String,
-    /// Present when the request named one.
-    #[schema(required = false)]
-    as_of: Option<String>,
-    results: Vec<EvaluateResult>,
-}
-
-/// A signing key, current or retired.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct PublicKey {
-    /// `ed25519-` and the first 16 hex digits of the SHA-256 of the raw key.
-    key_id: String,
-    /// `Ed25519`.
-    algorithm: String,
-    /// The raw 32-byte Ed25519 public key (RFC 8032), base64url without padding.
-    public_key: String,
-    /// `current` or `retired`.
-    status: String,
-    created_at: String,
-    retired_at: Option<String>,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct KeyList {
-    keys: Vec<PublicKey>,
-}
-
-/// A version as a change list shows it.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ChangeSide {
-    version: i64,
-    direction: String,
-    /// The four cut points by name.
-    cuts: BTreeMap<String, f64>,
-    effective_from: String,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct Change {
-    metric: String,
-    /// `added`, `changed` or `removed`.
-    change: String,
-    old: Option<ChangeSide>,
-    new: Option<ChangeSide>,
-}
-
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ChangeList {
-    from: i64,
-    to: i64,
-    changes: Vec<Change>,
-}
-
-/// Stands in for the published set's JSON Schema, which replaces it in the document.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct PublishedSet {}
-
-/// A proposal with its revisions, diffs, reviews, comments and what the caller may do next
-/// (docs/workflow.md).
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ProposalView {
-    id: i64,
-    metric: String,
-    state: String,
-}
-
-/// A metric's versions, oldest first.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct History {
-    metric: String,
-    #[schema(value_type = Vec<Object>)]
-    versions: Vec<Value>,
-}
-
-/// A metric with the version in force, the scheduled one and the open proposal, if any.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct MetricDetail {
-    key: String,
-    name: String,
-    #[schema(value_type = Option<Object>)]
-    version_in_force: Option<Value>,
-    #[schema(value_type = Option<Object>)]
-    scheduled_version: Option<Value>,
-    #[schema(value_type = Option<Object>)]
-    open_proposal: Option<Value>,
-}
-
-/// A structured view the audit pages also show (docs/events.md, docs/audit-chain.md).
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct AuditView {}
-
-/// The proposal content fields, as `POST /api/v1/metrics/{key}/proposals` takes them.
-#[derive(ToSchema, serde::Serialize)]
-#[allow(dead_code)]
-pub struct ProposalInput {
-    /// higher_is_better, lower_is_better or target_band.
-    direction: String,
-    /// The four cut points by name: critical, intervene, outperform, stretch; for a band
-    /// critical_low, intervene_low, intervene_high, critical_high.
-    cuts: BTreeMap<String, f64>,
-    /// Shades per graded zone, 2 to 5 (default 3).
-    #[schema(required = false)]
-    shades: Option<i64>,
-    /// Defaults to the metric's unit.
-    #[schema(required = false)]
-    unit: Option<String>,
-    /// RFC 3339 time or bare date; absent or null means on approval.
-    #[schema(required = false)]
-    effective_from: Option<String>,
-    rationale: String,
+error_answers! {
+    BadRequest = 400, "Malformed request, or invalid fields each named in error.fields";
+    Unauthenticated = 401, "No valid credential";
+    Forbidden = 403, "The caller may not do this: not their role, a read-scope token, \
+        or a browser session without its X-CSRF-Token";
+    NotFound = 404, "No such metric, proposal, revision or version; the message says which";
+    ProposalMovedOn = 409, "The proposal moved on: stale revision hash or wrong state";
+    TooLarge = 413, "The body is larger than this operation accepts";
+    NotJson = 415, "The body is not application/json";
+    Throttled = 429, "Too many wrong passwords: try again after Retry-After seconds",
+        retry_after "Seconds until the next attempt is taken";
+    Unavailable = 503, "The database is busy with other changes or not answering; nothing \
+        was changed. Try again after Retry-After seconds",
+        retry_after "Seconds to wait before trying again";
 }

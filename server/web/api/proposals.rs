@@ -5,18 +5,22 @@ use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use serde::Deserialize;
 use serde::de::DeserializeOwned;
+use serde::{Deserialize, Serialize};
 
 use super::metrics::KeyPath;
-use super::openapi::{AuditView, ErrorBody, History, ProposalInput, ProposalView};
+use super::openapi::{
+    BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
+    Unauthenticated, Unavailable,
+};
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
-use crate::ops::proposals::{self as flow, RevisionInput};
+use crate::ops::proposals::{self as flow, Inbox, ProposalView, RevisionInput};
+use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::ApiJson;
 
 /// A proposal id from the path; anything but a whole number is no such proposal.
@@ -77,8 +81,11 @@ async fn proposal_response(
 /// `POST /api/v1/metrics/{key}/proposals`: proposes thresholds for a metric (its owners).
 #[utoipa::path(post, path = "/v1/metrics/{key}/proposals", operation_id = "createProposal", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
-    request_body = ProposalInput,
-    responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    request_body = ContentInput,
+    responses((status = 201, description = "The proposal, a draft; Location names it", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound,
+        (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
+        TooLarge, NotJson, Unavailable))]
 pub async fn create(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -92,7 +99,8 @@ pub async fn create(
 /// `GET /api/v1/proposals/{id}`.
 #[utoipa::path(get, path = "/v1/proposals/{id}", operation_id = "getProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
-    responses((status = 200, description = "The proposal", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal", body = ProposalView),
+        Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -105,7 +113,8 @@ pub async fn show(
 #[utoipa::path(put, path = "/v1/proposals/{id}", operation_id = "reviseProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = RevisionInput,
-    responses((status = 200, description = "The proposal with its new revision", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal with its new revision", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn revise(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -119,7 +128,8 @@ pub async fn revise(
 /// `POST /api/v1/proposals/{id}/submit`: asks for review.
 #[utoipa::path(post, path = "/v1/proposals/{id}/submit", operation_id = "submitProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
-    responses((status = 200, description = "The proposal, in review", body = ProposalView), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, in review", body = ProposalView),
+        Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
 pub async fn submit(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -142,7 +152,8 @@ pub struct CommentInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/comments", operation_id = "commentOnProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = CommentInput,
-    responses((status = 201, description = "The proposal with the comment", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 201, description = "The proposal with the comment", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn comment(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -175,7 +186,8 @@ pub struct ReviewInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/reviews", operation_id = "reviewProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = ReviewInput,
-    responses((status = 200, description = "The proposal after the review", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal after the review", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn review(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -213,10 +225,13 @@ pub struct SignoffInput {
 }
 
 /// `POST /api/v1/proposals/{id}/signoff`: leadership's sign-off of a worst-level change.
+///
+/// A wrong password answers 401, and repeated wrong passwords 429.
 #[utoipa::path(post, path = "/v1/proposals/{id}/signoff", operation_id = "signOffProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = SignoffInput,
-    responses((status = 200, description = "The proposal after the sign-off", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal after the sign-off", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Throttled, Unavailable))]
 pub async fn signoff(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -245,7 +260,8 @@ pub struct ReasonInput {
 #[utoipa::path(post, path = "/v1/proposals/{id}/withdraw", operation_id = "withdrawProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body(content = Option<ReasonInput>, description = "Optional"),
-    responses((status = 200, description = "The proposal, withdrawn", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, withdrawn", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn withdraw(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -260,7 +276,8 @@ pub async fn withdraw(
 #[utoipa::path(post, path = "/v1/proposals/{id}/reject", operation_id = "rejectProposal", tag = "workflow",
     params(("id" = i64, Path, description = "Proposal id")),
     request_body = ReasonInput,
-    responses((status = 200, description = "The proposal, rejected", body = ProposalView), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 403, description = "The caller may not do this", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody), (status = 409, description = "The proposal moved on: stale revision hash or wrong state", body = ErrorBody)))]
+    responses((status = 200, description = "The proposal, rejected", body = ProposalView),
+        BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn reject(
     State(state): State<AppState>,
     caller: ApiCaller,
@@ -271,23 +288,39 @@ pub async fn reject(
     proposal_response(&state, &caller, id, StatusCode::OK).await
 }
 
+/// A metric's versions, oldest first.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct MetricHistory {
+    /// The metric's key.
+    pub metric: String,
+    pub versions: Vec<VersionView>,
+}
+
 /// `GET /api/v1/metrics/{key}/history`: every version, oldest first.
 #[utoipa::path(get, path = "/v1/metrics/{key}/history", operation_id = "getMetricHistory", tag = "workflow",
     params(("key" = String, Path, description = "Metric key")),
-    responses((status = 200, description = "Every version, oldest first", body = History), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody), (status = 404, description = "No such metric or proposal", body = ErrorBody)))]
+    responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
+        BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn history(
     State(state): State<AppState>,
     _caller: ApiCaller,
     KeyPath(key): KeyPath,
-) -> Result<Response, ApiError> {
+) -> Result<Json<MetricHistory>, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
     let versions = crate::ops::versions::history(&state.store, &metric).await?;
-    Ok(Json(serde_json::json!({"metric": metric.key, "versions": versions})).into_response())
+    Ok(Json(MetricHistory {
+        metric: metric.key.to_string(),
+        versions,
+    }))
 }
 
 /// `GET /api/v1/inbox`: what waits for the caller.
 #[utoipa::path(get, path = "/v1/inbox", operation_id = "getInbox", tag = "workflow",
-    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = AuditView), (status = 401, description = "No valid credential", body = ErrorBody)))]
-pub async fn inbox(State(state): State<AppState>, caller: ApiCaller) -> Result<Response, ApiError> {
-    Ok(Json(flow::inbox(&state.store, caller.user()).await?).into_response())
+    responses((status = 200, description = "Proposals waiting for the caller, by what they wait for", body = Inbox),
+        Unauthenticated, Unavailable))]
+pub async fn inbox(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+) -> Result<Json<Inbox>, ApiError> {
+    Ok(Json(flow::inbox(&state.store, caller.user()).await?))
 }

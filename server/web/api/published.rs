@@ -10,15 +10,16 @@ use axum::http::request::Parts;
 use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
-use serde_json::{Value, json};
 
-use super::openapi::{ChangeList, ErrorBody, EvaluateResponse, KeyList, PublishedSet};
+use super::openapi::{BadRequest, Forbidden, NotJson, Unauthenticated, Unavailable};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
+use crate::ops::publication::Change;
 use crate::publish::document::Rendered;
+use crate::publish::signing::PublicKey;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
-use crate::web::error::ApiError;
+use crate::web::error::{ApiError, ErrorBody, ErrorDetail};
 use crate::web::extract::{ApiJson, ApiQuery, time_param};
 
 /// A reader of the published set: anyone signed in or holding a token (any scope), or anyone
@@ -143,14 +144,15 @@ async fn rendered(
 #[utoipa::path(get, path = "/v1/published", operation_id = "getPublishedSet", tag = "published",
     params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set in force: RFC 8785 canonical JSON, signed", body = PublishedSet, headers(
+        (status = 200, description = "The set in force: RFC 8785 canonical JSON, signed", body = ref("#/components/schemas/PublishedSet"), headers(
             ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
             ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
             ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set(
     State(state): State<AppState>,
@@ -173,7 +175,8 @@ pub async fn set(
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set_csv(
     State(state): State<AppState>,
@@ -190,15 +193,17 @@ pub async fn set_csv(
 #[utoipa::path(get, path = "/v1/published/{key}", operation_id = "getPublishedMetric", tag = "published",
     params(("key" = String, Path, description = "Metric key"), TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set narrowed to one metric, with its own digest and signature", body = PublishedSet, headers(
+        (status = 200, description = "The set narrowed to one metric, with its own digest and signature", body = ref("#/components/schemas/PublishedSet"), headers(
             ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
             ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
             ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
             ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
             ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
         )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        BadRequest, Unauthenticated,
         (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
+        Unavailable,
     ))]
 pub async fn one(
     State(state): State<AppState>,
@@ -234,12 +239,13 @@ pub struct ChangesQuery {
 /// revisions, with their old and new cuts.
 #[utoipa::path(get, path = "/v1/published/changes", operation_id = "getPublishedChanges", tag = "published",
     params(ChangesQuery),
-    responses((status = 200, description = "The metrics whose version changed, with old and new cuts", body = ChangeList), (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody)))]
+    responses((status = 200, description = "The metrics whose version changed, with old and new cuts", body = ChangeList),
+        BadRequest, Unauthenticated, Unavailable))]
 pub async fn changes(
     State(state): State<AppState>,
     _reader: Reader,
     ApiQuery(q): ApiQuery<ChangesQuery>,
-) -> Result<Response, ApiError> {
+) -> Result<Json<ChangeList>, ApiError> {
     let current = crate::ops::publication::current(&state.publisher, &state.store)
         .await?
         .set_revision;
@@ -253,16 +259,37 @@ pub async fn changes(
             "need 0 <= from <= to <= {current} (the current set revision), got from={from} to={to}"
         )));
     }
-    let list = crate::ops::publication::changes(&state.store, from, to).await?;
-    Ok(Json(json!({"from": from, "to": to, "changes": list})).into_response())
+    let changes = crate::ops::publication::changes(&state.store, from, to).await?;
+    Ok(Json(ChangeList { from, to, changes }))
+}
+
+/// The metrics that moved between two set revisions.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct ChangeList {
+    /// The earlier set revision.
+    pub from: i64,
+    /// The later set revision.
+    pub to: i64,
+    /// In metric key order.
+    pub changes: Vec<Change>,
+}
+
+/// Every signing key, current and retired.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct KeyList {
+    pub keys: Vec<PublicKey>,
 }
 
 /// `GET /api/v1/keys`: the public keys, current and retired, to verify signatures with.
 #[utoipa::path(get, path = "/v1/keys", operation_id = "listSigningKeys", tag = "published",
-    responses((status = 200, description = "Every signing key, current and retired", body = KeyList), (status = 401, description = "No valid credential", body = ErrorBody)))]
-pub async fn keys(State(state): State<AppState>, _reader: Reader) -> Result<Response, ApiError> {
+    responses((status = 200, description = "Every signing key, current and retired", body = KeyList),
+        Unauthenticated, Unavailable))]
+pub async fn keys(
+    State(state): State<AppState>,
+    _reader: Reader,
+) -> Result<Json<KeyList>, ApiError> {
     let keys = crate::ops::publication::keys(&state.store).await?;
-    Ok(Json(json!({"keys": keys})).into_response())
+    Ok(Json(KeyList { keys }))
 }
 
 /// Most values one evaluate request may carry.
@@ -294,19 +321,37 @@ pub struct EvaluateRequest {
     as_of: Option<String>,
 }
 
-#[derive(Serialize)]
+/// One value's answer from evaluate: a classification, or an error for this item only.
+#[derive(Serialize, utoipa::ToSchema)]
 #[serde(untagged)]
-enum EvaluateResult {
+pub enum EvaluateResult {
     Classified {
+        /// Metric key.
         metric: String,
         #[serde(flatten)]
         result: crate::engine::Classification,
     },
     Failed {
+        /// Metric key.
         metric: String,
         value: Option<f64>,
-        error: Value,
+        /// Code `unknown_metric` or `no_version`.
+        error: ErrorDetail,
     },
+}
+
+/// The values evaluated against one published set.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct EvaluateResponse {
+    /// The set revision the values were classified against.
+    pub set_revision: i64,
+    /// That set's `meta.digest`.
+    pub digest: String,
+    /// Present when the request named one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub as_of: Option<Timestamp>,
+    /// One per value, in order.
+    pub results: Vec<EvaluateResult>,
 }
 
 /// `POST /api/v1/evaluate`: classifies values against the set in force (at `as_of`), each
@@ -316,14 +361,15 @@ enum EvaluateResult {
     request_body = EvaluateRequest,
     responses(
         (status = 200, description = "One result per value, in order", body = EvaluateResponse),
-        (status = 400, description = "Malformed request, or invalid fields each named in error.fields", body = ErrorBody), (status = 401, description = "No valid credential", body = ErrorBody),
+        BadRequest, Unauthenticated, Forbidden,
         (status = 413, description = "More than 10,000 values, or a body over the limit", body = ErrorBody),
+        NotJson, Unavailable,
     ))]
 pub async fn evaluate(
     State(state): State<AppState>,
     _reader: Reader,
     ApiJson(req): ApiJson<EvaluateRequest>,
-) -> Result<Response, ApiError> {
+) -> Result<Json<EvaluateResponse>, ApiError> {
     if req.values.len() > EVALUATE_MAX {
         return Err(ApiError::new(
             StatusCode::PAYLOAD_TOO_LARGE,
@@ -368,18 +414,15 @@ pub async fn evaluate(
                 EvaluateResult::Failed {
                     metric: item.metric,
                     value: item.value,
-                    error: json!({"code": code, "message": message}),
+                    error: ErrorDetail::new(code, message),
                 }
             }
         });
     }
-    let mut body = json!({
-        "set_revision": r.set_revision,
-        "digest": r.digest,
-        "results": results,
-    });
-    if let Some(t) = as_of {
-        body["as_of"] = json!(t);
-    }
-    Ok(Json(body).into_response())
+    Ok(Json(EvaluateResponse {
+        set_revision: r.set_revision,
+        digest: r.digest.clone(),
+        as_of,
+        results,
+    }))
 }

@@ -7,7 +7,7 @@ use serde_json::Value;
 use crate::audit::{Entry, Event};
 use crate::domain::access::{Scope, Session, TokenInfo};
 use crate::domain::proposal::{ProposalState, ThresholdContent, Verdict, cuts_object};
-use crate::domain::{CutSet, Direction, Metric, MetricKey, Owner, Role, Roles, Shades};
+use crate::domain::{CutSet, Direction, Metric, MetricKey, PersonRef, Role, Roles, Shades};
 use crate::domain::{Timestamp, User, Username};
 use crate::engine::canonical::{canonical_text, unified_diff};
 use crate::engine::changes::compare;
@@ -20,7 +20,7 @@ use crate::ops::proposals::{
     Allowed, CommentView, Inbox, InboxItem, ProposalView, ReviewView, RevisionView,
     SIGNOFF_MEANING, SignoffView,
 };
-use crate::ops::publication::{Change, Side};
+use crate::ops::publication::{Change, ChangeSide};
 use crate::ops::versions::{VersionRecord, VersionStatus, VersionView, view};
 use crate::publish::Signer;
 use crate::publish::document::{SetContent, document};
@@ -61,20 +61,19 @@ pub fn session() -> Session {
     }
 }
 
-fn owner() -> Owner {
-    Owner {
+fn owner() -> PersonRef {
+    PersonRef {
         username: username("tomas"),
         display_name: "Tomas Novak".into(),
     }
 }
 
 /// A person as the proposal views show them.
-fn person(name: &str, display_name: &str) -> Value {
-    serde_json::to_value(Owner {
+fn person(name: &str, display_name: &str) -> PersonRef {
+    PersonRef {
         username: username(name),
         display_name: display_name.into(),
-    })
-    .expect("a person as JSON")
+    }
 }
 
 pub fn metric() -> Metric {
@@ -411,7 +410,7 @@ pub fn published_document() -> Value {
 }
 
 pub fn changes() -> Vec<Change> {
-    let side = |version: i64, values: [f64; 4]| Side {
+    let side = |version: i64, values: [f64; 4]| ChangeSide {
         version,
         direction: Direction::HigherIsBetter.as_str(),
         cuts: cuts_object(&cuts(values)),
