@@ -255,16 +255,12 @@ pub async fn evidence(
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct ProposalBacktest {
     pub proposal: i64,
-    pub metric: String,
-    pub count: usize,
-    pub limits: Option<ProcessLimits>,
-    /// The proposal's revision (the latest unless the request named one).
-    pub backtest: BacktestView,
-    /// The version it is compared with (the latest approved before it), if any.
-    pub compared_with: Option<BacktestView>,
-    /// Periods whose zone differs: `first` under the compared version, `second` under the
+    /// `backtest` is the proposal's revision (the latest unless the request named one),
+    /// `compared_with` the version it is compared with (the latest approved before it), if
+    /// any; in `differences`, `first` is under the compared version, `second` under the
     /// proposal.
-    pub differences: Vec<DifferenceView>,
+    #[serde(flatten)]
+    pub backtests: VersionBacktest,
 }
 
 /// The backtest of a proposal's revision (the latest unless one is named) and of the version
@@ -307,24 +303,18 @@ pub async fn proposal_backtest(
         cuts: &content.cuts,
         shades: content.shades,
     };
-    let (backtest, compared_with, differences) = compared(
-        &history,
-        tested,
-        previous.as_ref().map(Tested::version),
-        critical_share,
-    );
     Ok(ProposalBacktest {
         proposal: id,
-        metric: history.metric.key.to_string(),
-        count: history.points.len(),
-        limits: history.limits,
-        backtest,
-        compared_with,
-        differences,
+        backtests: compared(
+            &history,
+            tested,
+            previous.as_ref().map(Tested::version),
+            critical_share,
+        ),
     })
 }
 
-/// A version's backtest, optionally beside another version.
+/// A version's backtest, optionally beside another version (`compared_with`).
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
 pub struct VersionBacktest {
     pub metric: String,
@@ -360,20 +350,12 @@ pub async fn version_backtest(
     let version = find(number)?;
     let other = compare.map(find).transpose()?;
     let history = history(store, metric, window).await?;
-    let (backtest, compared_with, differences) = compared(
+    Ok(compared(
         &history,
         Tested::version(&version),
         other.as_ref().map(Tested::version),
         critical_share,
-    );
-    Ok(VersionBacktest {
-        metric: history.metric.key.to_string(),
-        count: history.points.len(),
-        limits: history.limits,
-        backtest,
-        compared_with,
-        differences,
-    })
+    ))
 }
 
 /// A cut set to backtest, with what the answer calls it.
@@ -400,13 +382,20 @@ fn compared(
     tested: Tested<'_>,
     other: Option<Tested<'_>>,
     critical_share: f64,
-) -> (BacktestView, Option<BacktestView>, Vec<DifferenceView>) {
+) -> VersionBacktest {
     let differences = other
         .as_ref()
         .map(|o| differences((o.cuts, o.shades), (tested.cuts, tested.shades), history))
         .unwrap_or_default();
     let view = |t: Tested<'_>| backtest_view(t.subject, t.cuts, t.shades, history, critical_share);
-    (view(tested), other.map(view), differences)
+    VersionBacktest {
+        metric: history.metric.key.to_string(),
+        count: history.points.len(),
+        limits: history.limits,
+        backtest: view(tested),
+        compared_with: other.map(view),
+        differences,
+    }
 }
 
 /// A window of stored observations, for the API's listing.
