@@ -23,6 +23,7 @@ use super::AppState;
 use super::error::{ApiError, PageError, error_page};
 pub use super::layout::{Common, PageData};
 use crate::domain::Problems;
+use crate::ops::OpError;
 
 /// Renders a page with a status; a page that fails to render becomes the error page.
 pub fn render<P: PageData>(status: StatusCode, common: &Common<'_>, data: &P) -> Response {
@@ -83,6 +84,24 @@ pub fn field_errors(problems: &Problems) -> BTreeMap<String, String> {
             .or_insert_with(|| p.message.clone());
     }
     out
+}
+
+/// Problems a form can show beside its fields, with the status to show them under: a
+/// refusal of the whole request is shown beside `conflict_field`. Anything else becomes an
+/// error page.
+pub fn form_problems(
+    err: OpError,
+    conflict_field: &str,
+) -> Result<(Problems, StatusCode), PageError> {
+    match err {
+        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
+        OpError::Conflict(m) => {
+            let mut p = Problems::default();
+            p.add(conflict_field, m);
+            Ok((p, StatusCode::CONFLICT))
+        }
+        other => Err(other.into()),
+    }
 }
 
 /// Query parameters of a page; a malformed query is read as no parameters, since a page can

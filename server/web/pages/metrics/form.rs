@@ -17,7 +17,7 @@ use crate::ops::{self, OpError};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{Common, FormFields, PageData, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 
 /// The metric form's fields as text.
 #[derive(Debug, Serialize)]
@@ -180,15 +180,8 @@ fn reshow_or_fail(
     conflict_field: &str,
     show: impl FnOnce(&Problems, StatusCode) -> Response,
 ) -> Result<Response, PageError> {
-    match err {
-        OpError::Invalid(p) => Ok(show(&p, StatusCode::BAD_REQUEST)),
-        OpError::Conflict(m) => {
-            let mut p = Problems::default();
-            p.add(conflict_field, m);
-            Ok(show(&p, StatusCode::CONFLICT))
-        }
-        other => Err(other.into()),
-    }
+    let (problems, status) = form_problems(err, conflict_field)?;
+    Ok(show(&problems, status))
 }
 
 pub async fn create(

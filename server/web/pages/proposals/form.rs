@@ -8,7 +8,7 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{parse_id, parse_key};
+use super::{OnProposal, parse_key};
 use crate::domain::Metric;
 use crate::domain::access::Session;
 use crate::domain::proposal::ContentInput;
@@ -20,7 +20,9 @@ use crate::ops::proposals::{self as flow, RevisionInput};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::PageError;
-use crate::web::pages::{Common, FormFields, PageData, PageQuery, field_errors, render};
+use crate::web::pages::{
+    Common, FormFields, PageData, PageQuery, field_errors, form_problems, render,
+};
 
 #[derive(Deserialize, Default)]
 #[serde(default)]
@@ -260,19 +262,6 @@ pub async fn new_form(
     ))
 }
 
-/// Validation problems go back to the form; everything else is an error page.
-fn form_problems(e: OpError) -> Result<(Problems, StatusCode), PageError> {
-    match e {
-        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
-        OpError::Conflict(m) => {
-            let mut p = Problems::default();
-            p.add("form", m);
-            Ok((p, StatusCode::CONFLICT))
-        }
-        other => Err(other.into()),
-    }
-}
-
 pub async fn create(
     State(state): State<AppState>,
     PageSession(session): PageSession,
@@ -298,7 +287,7 @@ pub async fn create(
     match result {
         Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done=proposed")).into_response()),
         Err(e) => {
-            let (p, status) = form_problems(e)?;
+            let (p, status) = form_problems(e, "form")?;
             Ok(proposal_form(
                 &session,
                 &spec,
@@ -310,13 +299,13 @@ pub async fn create(
     }
 }
 
-pub async fn edit_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    PageQuery(query): PageQuery<FormQuery>,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn edit_form(on: OnProposal<PageQuery<FormQuery>>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: PageQuery(query),
+    } = on;
     let flow::ProposalRead { view, metric, .. } =
         flow::for_revision(&state.store, id, &session.user).await?;
     let latest = &view.latest_revision;
@@ -342,13 +331,13 @@ pub async fn edit_form(
     ))
 }
 
-pub async fn revise(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn revise(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: form,
+    } = on;
     let metric = flow::get(&state.store, id, Some(&session.user))
         .await?
         .metric;
@@ -373,7 +362,7 @@ pub async fn revise(
     match result {
         Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
         Err(e) => {
-            let (p, status) = form_problems(e)?;
+            let (p, status) = form_problems(e, "form")?;
             let spec = FormPage {
                 metric: &metric,
                 direction,
