@@ -22,7 +22,7 @@ use axum::response::{Html, IntoResponse, Response};
 use super::AppState;
 use super::error::{ApiError, PageError, error_page};
 pub use super::layout::{Common, PageData};
-use crate::domain::Problems;
+use crate::domain::{MetricKey, Problems};
 use crate::ops::OpError;
 
 /// Renders a page with a status; a page that fails to render becomes the error page.
@@ -74,6 +74,11 @@ impl FromRequest<AppState> for FormFields {
                 )))
             })
     }
+}
+
+/// A metric key from a page's path; one that is not a key is a page that does not exist.
+pub fn parse_key(key: &str) -> Result<MetricKey, PageError> {
+    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
 }
 
 /// The first problem of each field, for showing beside it.

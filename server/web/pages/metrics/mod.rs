@@ -10,17 +10,17 @@ use axum::response::Response;
 use serde::{Deserialize, Serialize};
 
 use super::evidence::MetricEvidence;
-use super::{Common, PageData, PageQuery, page};
+use super::{Common, PageData, PageQuery, page, parse_key};
 use crate::domain::access::Session;
 use crate::domain::proposal::ProposalState;
-use crate::domain::{Metric, MetricKey, Role, Timestamp};
+use crate::domain::{Metric, Role, Timestamp};
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, edit_permission};
 use crate::ops::proposals::ProposalView;
 use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
-use crate::web::error::{ApiError, PageError};
+use crate::web::error::PageError;
 
 #[derive(Deserialize, Default)]
 #[serde(default)]
@@ -97,10 +97,6 @@ pub async fn list(
     };
     let common = Common::new(Some(&session), "Metric register", "register");
     Ok(page(&common, &data))
-}
-
-fn parse_key(key: &str) -> Result<MetricKey, PageError> {
-    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
 }
 
 #[derive(Deserialize, Default)]

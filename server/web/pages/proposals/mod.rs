@@ -14,17 +14,12 @@ use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{Common, PageData, page};
-use crate::domain::MetricKey;
+use super::{Common, PageData, page, parse_key};
 use crate::domain::access::Session;
 use crate::ops::proposals::{self as flow, Inbox};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-
-fn parse_key(key: &str) -> Result<MetricKey, PageError> {
-    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
-}
 
 fn parse_id(id: &str) -> Result<i64, PageError> {
     id.parse()
