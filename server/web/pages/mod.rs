@@ -15,13 +15,15 @@ pub mod signin;
 use std::collections::BTreeMap;
 
 use axum::body::Bytes;
-use axum::extract::{FromRequest, Request};
+use axum::extract::{FromRequest, FromRequestParts, Path, Request};
 use axum::http::StatusCode;
 use axum::response::{Html, IntoResponse, Response};
 
 use super::AppState;
+use super::auth::PageSession;
 use super::error::{ApiError, PageError, error_page};
 pub use super::layout::{Common, PageData};
+use crate::domain::access::Session;
 use crate::domain::{MetricKey, Problems};
 use crate::ops::OpError;
 
@@ -74,6 +76,28 @@ impl FromRequest<AppState> for FormFields {
                 )))
             })
     }
+}
+
+/// What a page about one thing reads first: the reader's session (or the sign-in redirect),
+/// the one parameter of its path as text, then what it reads besides (`Input`: its query or
+/// its posted form), in that order, as separate extractors in a handler's arguments would.
+pub async fn session_path_and<Input, M>(
+    req: Request,
+    state: &AppState,
+) -> Result<(Session, String, Input), Response>
+where
+    Input: FromRequest<AppState, M>,
+    Input::Rejection: IntoResponse,
+{
+    let (mut parts, body) = req.into_parts();
+    let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
+    let Path(param) = Path::<String>::from_request_parts(&mut parts, state)
+        .await
+        .map_err(IntoResponse::into_response)?;
+    let input = Input::from_request(Request::from_parts(parts, body), state)
+        .await
+        .map_err(IntoResponse::into_response)?;
+    Ok((session, param, input))
 }
 
 /// A metric key from a page's path; one that is not a key is a page that does not exist.

@@ -3,16 +3,16 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
+use axum::extract::State;
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::parse_key;
+use super::OnMetric;
 use crate::domain::access::Session;
 use crate::domain::metric::split_list;
 use crate::domain::{FieldProblem, Metric, Problems, Role};
-use crate::ops::metrics::{self as metrics, MetricEdit, NewMetric, edit_permission};
+use crate::ops::metrics::{MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
@@ -233,13 +233,10 @@ fn edit_spec(metric: &Metric, session: &Session) -> FormSpec<'static> {
     }
 }
 
-pub async fn edit_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn edit_form(on: OnMetric<()>) -> Result<Response, PageError> {
+    let OnMetric {
+        session, metric, ..
+    } = on;
     edit_permission(&session.user, &metric, &MetricEdit::default())?;
     Ok(metric_form(
         &session,
@@ -250,14 +247,13 @@ pub async fn edit_form(
     ))
 }
 
-pub async fn edit(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn edit(on: OnMetric<FormFields>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: form,
+    } = on;
     let spec = edit_spec(&metric, &session);
     let mut problems = Problems::default();
     let input = MetricEdit {
@@ -287,7 +283,7 @@ pub async fn edit(
         }
         return Ok(show(&problems, StatusCode::BAD_REQUEST));
     }
-    match ops::metrics::edit(&state.store, &session.user, key.as_str(), &input).await {
+    match ops::metrics::edit(&state.store, &session.user, metric.key.as_str(), &input).await {
         Ok(m) => Ok(Redirect::to(&format!("/metrics/{}?saved=edited", m.key)).into_response()),
         Err(e) => reshow_or_fail(e, "name", show),
     }

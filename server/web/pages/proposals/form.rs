@@ -3,23 +3,20 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{OnProposal, parse_key};
+use super::OnProposal;
 use crate::domain::Metric;
 use crate::domain::access::Session;
 use crate::domain::proposal::ContentInput;
 use crate::domain::thresholds::Direction;
 use crate::domain::{FieldProblem, Problems};
 use crate::ops::OpError;
-use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, RevisionInput};
-use crate::web::AppState;
-use crate::web::auth::PageSession;
 use crate::web::error::PageError;
+use crate::web::pages::metrics::OnMetric;
 use crate::web::pages::{
     Common, FormFields, PageData, PageQuery, field_errors, form_problems, render,
 };
@@ -219,14 +216,13 @@ fn direction_param(text: &str, fallback: Direction) -> Direction {
     text.parse().unwrap_or(fallback)
 }
 
-pub async fn new_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    PageQuery(query): PageQuery<FormQuery>,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn new_form(on: OnMetric<PageQuery<FormQuery>>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: PageQuery(query),
+    } = on;
     flow::may_propose(&session.user, &metric)?;
     let history = crate::ops::versions::history(&state.store, &metric).await?;
     let latest = history.last();
@@ -262,14 +258,13 @@ pub async fn new_form(
     ))
 }
 
-pub async fn create(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn create(on: OnMetric<FormFields>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: form,
+    } = on;
     let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
     let mut problems = Problems::default();
     let input = content_from_form(direction, &form, &mut problems);
@@ -280,7 +275,7 @@ pub async fn create(
         revising: None,
     };
     let result = if problems.is_empty() {
-        flow::propose(&state.store, &session.user, key.as_str(), &input).await
+        flow::propose(&state.store, &session.user, metric.key.as_str(), &input).await
     } else {
         Err(OpError::Invalid(problems))
     };

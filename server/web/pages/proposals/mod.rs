@@ -10,11 +10,11 @@ pub use decide::{comment, reject, review, signoff, submit, withdraw};
 pub use form::{ProposalForm, ProposalFormValues, Revising, create, edit_form, new_form, revise};
 pub use show::{ProposalPage, SignoffPage, show, signoff_page, strip_for};
 
-use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequest, Request, State};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{Common, PageData, page, parse_key};
+use super::{Common, PageData, page, session_path_and};
 use crate::domain::access::Session;
 use crate::ops::proposals::{self as flow, Inbox};
 use crate::web::AppState;
@@ -45,15 +45,7 @@ where
     type Rejection = Response;
 
     async fn from_request(req: Request, state: &AppState) -> Result<Self, Self::Rejection> {
-        let (mut parts, body) = req.into_parts();
-        let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
-        let Path(id) = Path::<String>::from_request_parts(&mut parts, state)
-            .await
-            .map_err(IntoResponse::into_response)?;
-        let request = Request::from_parts(parts, body);
-        let input = Input::from_request(request, state)
-            .await
-            .map_err(IntoResponse::into_response)?;
+        let (session, id, input) = session_path_and(req, state).await?;
         let id = parse_id(&id).map_err(IntoResponse::into_response)?;
         Ok(OnProposal {
             state: state.clone(),
