@@ -5,14 +5,14 @@ use axum::extract::{Path, State};
 use axum::response::Response;
 use serde::Serialize;
 
-use super::{Common, PageData, PageQuery, page};
-use crate::domain::{Metric, MetricKey, Timestamp};
+use super::{Common, PageData, PageQuery, page, parse_key};
+use crate::domain::{Metric, Timestamp};
 use crate::ops::audit::{self, AsOf, Exceptions, Extract, Timeline, Verification};
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::web::AppState;
 use crate::web::api::audit::{AsOfQuery, ExtractQuery};
 use crate::web::auth::PageSession;
-use crate::web::error::{ApiError, PageError};
+use crate::web::error::PageError;
 
 /// The audit overview: the chain's verification and a link to each metric's timeline.
 #[derive(Debug, Serialize)]
@@ -59,7 +59,7 @@ pub async fn timeline(
     PageSession(session): PageSession,
     Path(key): Path<String>,
 ) -> Result<Response, PageError> {
-    let key = MetricKey::parse(&key).map_err(|e| PageError(ApiError::not_found(e.to_string())))?;
+    let key = parse_key(&key)?;
     let t = audit::timeline(&state.store, &session.user, key.as_str()).await?;
     let common = Common::new(Some(&session), format!("Why {} moved", t.name), "audit");
     Ok(page(&common, &TimelinePage { t: &t }))

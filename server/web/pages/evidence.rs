@@ -7,7 +7,7 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::{Common, PageData};
+use super::{Common, PageData, parse_key};
 use crate::charts::history::{Bands, HistoryChart, LimitLines, history_chart};
 use crate::domain::observations::Mode;
 use crate::domain::thresholds::{CutSet, Shades};
@@ -365,7 +365,7 @@ pub async fn upload(
     Path(key): Path<String>,
     mut form: Multipart,
 ) -> Result<Response, PageError> {
-    let key = MetricKey::parse(&key).map_err(|e| PageError(ApiError::not_found(e.to_string())))?;
+    let key = parse_key(&key)?;
     let unreadable = |e: axum::extract::multipart::MultipartError| {
         let status = e.status();
         PageError(ApiError::new(

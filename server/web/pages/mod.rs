@@ -15,14 +15,17 @@ pub mod signin;
 use std::collections::BTreeMap;
 
 use axum::body::Bytes;
-use axum::extract::{FromRequest, Request};
+use axum::extract::{FromRequest, FromRequestParts, Path, Request};
 use axum::http::StatusCode;
 use axum::response::{Html, IntoResponse, Response};
 
 use super::AppState;
+use super::auth::PageSession;
 use super::error::{ApiError, PageError, error_page};
 pub use super::layout::{Common, PageData};
-use crate::domain::Problems;
+use crate::domain::access::Session;
+use crate::domain::{MetricKey, Problems};
+use crate::ops::OpError;
 
 /// Renders a page with a status; a page that fails to render becomes the error page.
 pub fn render<P: PageData>(status: StatusCode, common: &Common<'_>, data: &P) -> Response {
@@ -75,6 +78,33 @@ impl FromRequest<AppState> for FormFields {
     }
 }
 
+/// What a page about one thing reads first: the reader's session (or the sign-in redirect),
+/// the one parameter of its path as text, then what it reads besides (`Input`: its query or
+/// its posted form), in that order, as separate extractors in a handler's arguments would.
+pub async fn session_path_and<Input, M>(
+    req: Request,
+    state: &AppState,
+) -> Result<(Session, String, Input), Response>
+where
+    Input: FromRequest<AppState, M>,
+    Input::Rejection: IntoResponse,
+{
+    let (mut parts, body) = req.into_parts();
+    let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
+    let Path(param) = Path::<String>::from_request_parts(&mut parts, state)
+        .await
+        .map_err(IntoResponse::into_response)?;
+    let input = Input::from_request(Request::from_parts(parts, body), state)
+        .await
+        .map_err(IntoResponse::into_response)?;
+    Ok((session, param, input))
+}
+
+/// A metric key from a page's path; one that is not a key is a page that does not exist.
+pub fn parse_key(key: &str) -> Result<MetricKey, PageError> {
+    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
+}
+
 /// The first problem of each field, for showing beside it.
 pub fn field_errors(problems: &Problems) -> BTreeMap<String, String> {
     let mut out = BTreeMap::new();
@@ -83,6 +113,24 @@ pub fn field_errors(problems: &Problems) -> BTreeMap<String, String> {
             .or_insert_with(|| p.message.clone());
     }
     out
+}
+
+/// Problems a form can show beside its fields, with the status to show them under: a
+/// refusal of the whole request is shown beside `conflict_field`. Anything else becomes an
+/// error page.
+pub fn form_problems(
+    err: OpError,
+    conflict_field: &str,
+) -> Result<(Problems, StatusCode), PageError> {
+    match err {
+        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
+        OpError::Conflict(m) => {
+            let mut p = Problems::default();
+            p.add(conflict_field, m);
+            Ok((p, StatusCode::CONFLICT))
+        }
+        other => Err(other.into()),
+    }
 }
 
 /// Query parameters of a page; a malformed query is read as no parameters, since a page can

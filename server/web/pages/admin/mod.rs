@@ -15,7 +15,7 @@ use axum::http::request::Parts;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::{Common, FormFields, PageData, PageQuery, field_errors, page, render};
+use super::{Common, FormFields, PageData, PageQuery, field_errors, form_problems, page, render};
 use crate::domain::access::{Session, TokenInfo};
 use crate::domain::{FieldProblem, Problems, User};
 use crate::domain::{Role, Timestamp, Username};
@@ -133,19 +133,6 @@ pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response
         &Problems::default(),
         StatusCode::OK,
     ))
-}
-
-/// Problems a form can show beside its fields; anything else becomes an error page.
-fn form_problems(err: OpError, conflict_field: &str) -> Result<(Problems, StatusCode), PageError> {
-    match err {
-        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
-        OpError::Conflict(m) => {
-            let mut p = Problems::default();
-            p.add(conflict_field, m);
-            Ok((p, StatusCode::CONFLICT))
-        }
-        other => Err(other.into()),
-    }
 }
 
 pub async fn user_create(

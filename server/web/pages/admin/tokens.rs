@@ -7,7 +7,7 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
-use super::{TokenRow, form_problems, require_admin, token_rows};
+use super::{TokenRow, require_admin, token_rows};
 use crate::domain::access::{Scope, Session, TokenInfo};
 use crate::domain::{Problems, Timestamp, User, Username};
 use crate::ops::OpError;
@@ -15,7 +15,7 @@ use crate::ops::users::{self as user_ops, By};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{Common, FormFields, PageData, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 use crate::web::redirect::to_same_site;
 
 /// A person a token can be issued to.
@@ -167,35 +167,25 @@ pub async fn token_issue(
         _ => Err(OpError::Invalid(problems)),
     };
     let people = user_ops::list(&state.store).await?;
-    match result {
-        Ok((secret, info)) => {
-            let listed =
-                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-            Ok(tokens_page(
-                &session,
-                &listed,
-                &people,
-                Some((&secret, &info)),
-                None,
-                &Problems::default(),
-                StatusCode::CREATED,
-            ))
-        }
+    let (issued, typed, problems, status) = match result {
+        Ok(issued) => (Some(issued), None, Problems::default(), StatusCode::CREATED),
         Err(e) => {
             let (p, status) = form_problems(e, "label")?;
-            let listed =
-                user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-            Ok(tokens_page(
-                &session,
-                &listed,
-                &people,
-                None,
-                Some(&form),
-                &p,
-                status,
-            ))
+            (None, Some(&form), p, status)
         }
-    }
+    };
+    let listed = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
+    Ok(tokens_page(
+        &session,
+        &listed,
+        &people,
+        issued
+            .as_ref()
+            .map(|(secret, info)| (secret.as_str(), info)),
+        typed,
+        &problems,
+        status,
+    ))
 }
 
 pub async fn token_revoke(

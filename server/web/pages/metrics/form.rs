@@ -3,21 +3,21 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
+use axum::extract::State;
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::parse_key;
+use super::OnMetric;
 use crate::domain::access::Session;
 use crate::domain::metric::split_list;
 use crate::domain::{FieldProblem, Metric, Problems, Role};
-use crate::ops::metrics::{self as metrics, MetricEdit, NewMetric, edit_permission};
+use crate::ops::metrics::{MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{Common, FormFields, PageData, field_errors, render};
+use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 
 /// The metric form's fields as text.
 #[derive(Debug, Serialize)]
@@ -180,15 +180,8 @@ fn reshow_or_fail(
     conflict_field: &str,
     show: impl FnOnce(&Problems, StatusCode) -> Response,
 ) -> Result<Response, PageError> {
-    match err {
-        OpError::Invalid(p) => Ok(show(&p, StatusCode::BAD_REQUEST)),
-        OpError::Conflict(m) => {
-            let mut p = Problems::default();
-            p.add(conflict_field, m);
-            Ok(show(&p, StatusCode::CONFLICT))
-        }
-        other => Err(other.into()),
-    }
+    let (problems, status) = form_problems(err, conflict_field)?;
+    Ok(show(&problems, status))
 }
 
 pub async fn create(
@@ -240,13 +233,10 @@ fn edit_spec(metric: &Metric, session: &Session) -> FormSpec<'static> {
     }
 }
 
-pub async fn edit_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn edit_form(on: OnMetric<()>) -> Result<Response, PageError> {
+    let OnMetric {
+        session, metric, ..
+    } = on;
     edit_permission(&session.user, &metric, &MetricEdit::default())?;
     Ok(metric_form(
         &session,
@@ -257,14 +247,13 @@ pub async fn edit_form(
     ))
 }
 
-pub async fn edit(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn edit(on: OnMetric<FormFields>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: form,
+    } = on;
     let spec = edit_spec(&metric, &session);
     let mut problems = Problems::default();
     let input = MetricEdit {
@@ -294,7 +283,7 @@ pub async fn edit(
         }
         return Ok(show(&problems, StatusCode::BAD_REQUEST));
     }
-    match ops::metrics::edit(&state.store, &session.user, key.as_str(), &input).await {
+    match ops::metrics::edit(&state.store, &session.user, metric.key.as_str(), &input).await {
         Ok(m) => Ok(Redirect::to(&format!("/metrics/{}?saved=edited", m.key)).into_response()),
         Err(e) => reshow_or_fail(e, "name", show),
     }

@@ -5,22 +5,55 @@ mod form;
 
 pub use form::{MetricForm, MetricFormValues, create, edit, edit_form, new_form};
 
-use axum::extract::{Path, State};
-use axum::response::Response;
+use axum::extract::{FromRequest, Request, State};
+use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
 use super::evidence::MetricEvidence;
-use super::{Common, PageData, PageQuery, page};
+use super::{Common, PageData, PageQuery, page, parse_key, session_path_and};
 use crate::domain::access::Session;
 use crate::domain::proposal::ProposalState;
-use crate::domain::{Metric, MetricKey, Role, Timestamp};
+use crate::domain::{Metric, Role, Timestamp};
 use crate::ops::metrics::{self as metrics, MetricFilter};
 use crate::ops::metrics::{MetricEdit, edit_permission};
 use crate::ops::proposals::ProposalView;
 use crate::ops::versions::VersionView;
 use crate::web::AppState;
 use crate::web::auth::PageSession;
-use crate::web::error::{ApiError, PageError};
+use crate::web::error::PageError;
+
+/// What every page of one metric starts from: the application, the reader's session, the
+/// metric its path names, and what the page reads besides (`input`: its query or its posted
+/// form). Read in that order, as separate extractors would be; the metric is looked up once
+/// the rest has been read, and a key that is not one or names no metric answers 404.
+pub struct OnMetric<Input> {
+    pub state: AppState,
+    pub session: Session,
+    pub metric: Metric,
+    pub input: Input,
+}
+
+impl<Input, M> FromRequest<AppState, M> for OnMetric<Input>
+where
+    Input: FromRequest<AppState, M> + Send,
+    Input::Rejection: IntoResponse,
+{
+    type Rejection = Response;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Self::Rejection> {
+        let (session, key, input) = session_path_and(req, state).await?;
+        let key = parse_key(&key).map_err(IntoResponse::into_response)?;
+        let metric = metrics::get(&state.store, key.as_str())
+            .await
+            .map_err(|e| PageError::from(e).into_response())?;
+        Ok(OnMetric {
+            state: state.clone(),
+            session,
+            metric,
+            input,
+        })
+    }
+}
 
 #[derive(Deserialize, Default)]
 #[serde(default)]
@@ -99,10 +132,6 @@ pub async fn list(
     Ok(page(&common, &data))
 }
 
-fn parse_key(key: &str) -> Result<MetricKey, PageError> {
-    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
-}
-
 #[derive(Deserialize, Default)]
 #[serde(default)]
 pub struct SavedQuery {
@@ -151,14 +180,13 @@ impl PageData for MetricDetail<'_> {
     const TEMPLATE: &'static str = "metric_detail.html";
 }
 
-pub async fn detail(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    PageQuery(query): PageQuery<SavedQuery>,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn detail(on: OnMetric<PageQuery<SavedQuery>>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: PageQuery(query),
+    } = on;
     let saved = match query.saved.as_str() {
         "created" => Some("The metric was added to the register."),
         "edited" => Some("Your changes were saved."),

@@ -1,30 +1,25 @@
 //! The decision forms: each posts one workflow step and comes back to the proposal, with a
 //! message on success or the reason it was refused.
 
-use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 
-use super::parse_id;
+use super::OnProposal;
 use super::show::{load_with_evidence, proposal_page};
-use crate::domain::access::Session;
 use crate::domain::proposal::Verdict;
 use crate::ops::OpError;
 use crate::ops::proposals::{self as flow};
-use crate::web::AppState;
-use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
 use crate::web::pages::FormFields;
 
 /// Runs a step; on success returns to the proposal with a message, on a refusal shows the
 /// proposal again with the reason (and the status the API would give).
 async fn step(
-    state: &AppState,
-    session: &Session,
-    id: i64,
+    on: &OnProposal<FormFields>,
     done: &str,
     result: Result<(), OpError>,
 ) -> Result<Response, PageError> {
+    let (state, session, id) = (&on.state, &on.session, on.id);
     match result {
         Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done={done}")).into_response()),
         Err(e) => {
@@ -60,55 +55,41 @@ async fn step(
     }
 }
 
-pub async fn submit(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    _form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
-    let result = flow::submit(&state.store, &session.user, id).await;
-    step(&state, &session, id, "submitted", result).await
+pub async fn submit(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let result = flow::submit(&on.state.store, &on.session.user, on.id).await;
+    step(&on, "submitted", result).await
 }
 
-pub async fn comment(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
-    let cut = Some(form.get("cut")).filter(|c| !c.is_empty());
-    let result = flow::comment(&state.store, &session.user, id, form.get("body"), cut)
-        .await
-        .map(|_| ());
-    step(&state, &session, id, "commented", result).await
+pub async fn comment(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let cut = Some(on.input.get("cut")).filter(|c| !c.is_empty());
+    let result = flow::comment(
+        &on.state.store,
+        &on.session.user,
+        on.id,
+        on.input.get("body"),
+        cut,
+    )
+    .await
+    .map(|_| ());
+    step(&on, "commented", result).await
 }
 
-pub async fn review(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
-    let Some(verdict) = Verdict::parse(form.get("verdict")) else {
+pub async fn review(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let Some(verdict) = Verdict::parse(on.input.get("verdict")) else {
         return step(
-            &state,
-            &session,
-            id,
+            &on,
             "",
             Err(OpError::Conflict("choose approve or send back".into())),
         )
         .await;
     };
     let result = flow::review(
-        &state.store,
-        &session.user,
-        id,
+        &on.state.store,
+        &on.session.user,
+        on.id,
         verdict,
-        form.get("revision_hash"),
-        form.get("comment"),
+        on.input.get("revision_hash"),
+        on.input.get("comment"),
     )
     .await;
     let done = match (&result, verdict) {
@@ -116,22 +97,16 @@ pub async fn review(
         (_, Verdict::Approve) => "approved",
         (_, Verdict::SendBack) => "sent_back",
     };
-    step(&state, &session, id, done, result.map(|_| ())).await
+    step(&on, done, result.map(|_| ())).await
 }
 
-pub async fn signoff(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn signoff(on: OnProposal<FormFields>) -> Result<Response, PageError> {
     let result = flow::sign_off(
-        &state.store,
-        &session.user,
-        id,
-        form.get("revision_hash"),
-        form.get("password"),
+        &on.state.store,
+        &on.session.user,
+        on.id,
+        on.input.get("revision_hash"),
+        on.input.get("password"),
     )
     .await;
     let done = if result.as_ref().is_ok_and(|o| o.version.is_some()) {
@@ -139,27 +114,27 @@ pub async fn signoff(
     } else {
         "signed"
     };
-    step(&state, &session, id, done, result.map(|_| ())).await
+    step(&on, done, result.map(|_| ())).await
 }
 
-pub async fn withdraw(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
-    let result = flow::withdraw(&state.store, &session.user, id, form.get("reason")).await;
-    step(&state, &session, id, "withdrawn", result).await
+pub async fn withdraw(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let result = flow::withdraw(
+        &on.state.store,
+        &on.session.user,
+        on.id,
+        on.input.get("reason"),
+    )
+    .await;
+    step(&on, "withdrawn", result).await
 }
 
-pub async fn reject(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
-    let result = flow::reject(&state.store, &session.user, id, form.get("reason")).await;
-    step(&state, &session, id, "rejected", result).await
+pub async fn reject(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let result = flow::reject(
+        &on.state.store,
+        &on.session.user,
+        on.id,
+        on.input.get("reason"),
+    )
+    .await;
+    step(&on, "rejected", result).await
 }

@@ -3,24 +3,23 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{parse_id, parse_key};
+use super::OnProposal;
 use crate::domain::Metric;
 use crate::domain::access::Session;
 use crate::domain::proposal::ContentInput;
 use crate::domain::thresholds::Direction;
 use crate::domain::{FieldProblem, Problems};
 use crate::ops::OpError;
-use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, RevisionInput};
-use crate::web::AppState;
-use crate::web::auth::PageSession;
 use crate::web::error::PageError;
-use crate::web::pages::{Common, FormFields, PageData, PageQuery, field_errors, render};
+use crate::web::pages::metrics::OnMetric;
+use crate::web::pages::{
+    Common, FormFields, PageData, PageQuery, field_errors, form_problems, render,
+};
 
 #[derive(Deserialize, Default)]
 #[serde(default)]
@@ -217,14 +216,13 @@ fn direction_param(text: &str, fallback: Direction) -> Direction {
     text.parse().unwrap_or(fallback)
 }
 
-pub async fn new_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    PageQuery(query): PageQuery<FormQuery>,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn new_form(on: OnMetric<PageQuery<FormQuery>>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: PageQuery(query),
+    } = on;
     flow::may_propose(&session.user, &metric)?;
     let history = crate::ops::versions::history(&state.store, &metric).await?;
     let latest = history.last();
@@ -260,27 +258,13 @@ pub async fn new_form(
     ))
 }
 
-/// Validation problems go back to the form; everything else is an error page.
-fn form_problems(e: OpError) -> Result<(Problems, StatusCode), PageError> {
-    match e {
-        OpError::Invalid(p) => Ok((p, StatusCode::BAD_REQUEST)),
-        OpError::Conflict(m) => {
-            let mut p = Problems::default();
-            p.add("form", m);
-            Ok((p, StatusCode::CONFLICT))
-        }
-        other => Err(other.into()),
-    }
-}
-
-pub async fn create(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(key): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let key = parse_key(&key)?;
-    let metric = metrics::get(&state.store, key.as_str()).await?;
+pub async fn create(on: OnMetric<FormFields>) -> Result<Response, PageError> {
+    let OnMetric {
+        state,
+        session,
+        metric,
+        input: form,
+    } = on;
     let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
     let mut problems = Problems::default();
     let input = content_from_form(direction, &form, &mut problems);
@@ -291,14 +275,14 @@ pub async fn create(
         revising: None,
     };
     let result = if problems.is_empty() {
-        flow::propose(&state.store, &session.user, key.as_str(), &input).await
+        flow::propose(&state.store, &session.user, metric.key.as_str(), &input).await
     } else {
         Err(OpError::Invalid(problems))
     };
     match result {
         Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done=proposed")).into_response()),
         Err(e) => {
-            let (p, status) = form_problems(e)?;
+            let (p, status) = form_problems(e, "form")?;
             Ok(proposal_form(
                 &session,
                 &spec,
@@ -310,13 +294,13 @@ pub async fn create(
     }
 }
 
-pub async fn edit_form(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    PageQuery(query): PageQuery<FormQuery>,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn edit_form(on: OnProposal<PageQuery<FormQuery>>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: PageQuery(query),
+    } = on;
     let flow::ProposalRead { view, metric, .. } =
         flow::for_revision(&state.store, id, &session.user).await?;
     let latest = &view.latest_revision;
@@ -342,13 +326,13 @@ pub async fn edit_form(
     ))
 }
 
-pub async fn revise(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn revise(on: OnProposal<FormFields>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: form,
+    } = on;
     let metric = flow::get(&state.store, id, Some(&session.user))
         .await?
         .metric;
@@ -373,7 +357,7 @@ pub async fn revise(
     match result {
         Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
         Err(e) => {
-            let (p, status) = form_problems(e)?;
+            let (p, status) = form_problems(e, "form")?;
             let spec = FormPage {
                 metric: &metric,
                 direction,

@@ -10,24 +10,50 @@ pub use decide::{comment, reject, review, signoff, submit, withdraw};
 pub use form::{ProposalForm, ProposalFormValues, Revising, create, edit_form, new_form, revise};
 pub use show::{ProposalPage, SignoffPage, show, signoff_page, strip_for};
 
-use axum::extract::State;
-use axum::response::Response;
+use axum::extract::{FromRequest, Request, State};
+use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::{Common, PageData, page};
-use crate::domain::MetricKey;
+use super::{Common, PageData, page, session_path_and};
+use crate::domain::access::Session;
 use crate::ops::proposals::{self as flow, Inbox};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
 
-fn parse_key(key: &str) -> Result<MetricKey, PageError> {
-    MetricKey::parse(key).map_err(|e| PageError(ApiError::not_found(e.to_string())))
-}
-
 fn parse_id(id: &str) -> Result<i64, PageError> {
     id.parse()
         .map_err(|_| PageError(ApiError::not_found(format!("no proposal with id {id:?}"))))
+}
+
+/// What every page of one proposal starts from: the application, the reader's session, the
+/// proposal's id from the path, and what the page reads besides (`input`: its query or its
+/// posted form). Read in that order, as separate extractors would be; an id that is not a
+/// number answers "no proposal" once the rest has been read.
+pub struct OnProposal<Input> {
+    pub state: AppState,
+    pub session: Session,
+    pub id: i64,
+    pub input: Input,
+}
+
+impl<Input, M> FromRequest<AppState, M> for OnProposal<Input>
+where
+    Input: FromRequest<AppState, M>,
+    Input::Rejection: IntoResponse,
+{
+    type Rejection = Response;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Self::Rejection> {
+        let (session, id, input) = session_path_and(req, state).await?;
+        let id = parse_id(&id).map_err(IntoResponse::into_response)?;
+        Ok(OnProposal {
+            state: state.clone(),
+            session,
+            id,
+            input,
+        })
+    }
 }
 
 #[derive(Deserialize, Default)]

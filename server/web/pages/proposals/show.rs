@@ -1,12 +1,11 @@
 //! A proposal's page and the signatory's sign-off page: the proposal with its zone strip,
 //! diffs, evidence and the forms for what the reader may do next.
 
-use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use axum::response::Response;
 use serde::Serialize;
 
-use super::{DoneQuery, done_message, parse_id};
+use super::{DoneQuery, OnProposal, done_message};
 use crate::charts::zone_strip::{StripRow, zone_strip};
 use crate::domain::Metric;
 use crate::domain::access::Session;
@@ -14,7 +13,6 @@ use crate::domain::thresholds::{CutSet, Direction};
 use crate::ops::proposals::{self as flow, ProposalView, RevisionView};
 use crate::ops::versions::VersionRecord;
 use crate::web::AppState;
-use crate::web::auth::PageSession;
 use crate::web::error::PageError;
 use crate::web::pages::evidence::{EvidenceSection, MetricEvidence};
 use crate::web::pages::{Common, PageData, PageQuery, render};
@@ -183,13 +181,13 @@ pub(super) fn proposal_page(
     )
 }
 
-pub async fn show(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    PageQuery(query): PageQuery<DoneQuery>,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn show(on: OnProposal<PageQuery<DoneQuery>>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: PageQuery(query),
+    } = on;
     let (read, evidence) =
         load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
     let flow::ProposalRead {
@@ -224,13 +222,13 @@ impl PageData for SignoffPage<'_> {
 
 /// `GET /proposals/{id}/signoff`: what changes, the evidence and the signature form on one
 /// page for the signatory.
-pub async fn signoff_page(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    PageQuery(query): PageQuery<DoneQuery>,
-) -> Result<Response, PageError> {
-    let id = parse_id(&id)?;
+pub async fn signoff_page(on: OnProposal<PageQuery<DoneQuery>>) -> Result<Response, PageError> {
+    let OnProposal {
+        state,
+        session,
+        id,
+        input: PageQuery(query),
+    } = on;
     let (flow::ProposalRead { view, metric, .. }, evidence) =
         load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
     let data = SignoffPage {
