@@ -2,6 +2,7 @@
 //! dashboards and pipelines, byte for byte the same for the same request, with strong ETags
 //! and `If-None-Match` (RFC 9110 §13.1.2).
 
+use std::collections::BTreeMap;
 use std::sync::Arc;
 
 use axum::Json;
@@ -10,6 +11,11 @@ use axum::http::request::Parts;
 use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
+use utoipa::openapi::content::ContentBuilder;
+use utoipa::openapi::header::HeaderBuilder;
+use utoipa::openapi::response::{Response as ResponseDoc, ResponseBuilder};
+use utoipa::openapi::{Ref, RefOr, Schema};
+use utoipa::{IntoResponses, PartialSchema};
 
 use super::openapi::{BadRequest, Forbidden, NotJson, Unauthenticated, Unavailable};
 use crate::domain::{MetricKey, Timestamp};
@@ -131,6 +137,87 @@ fn send(request: &HeaderMap, r: &Rendered, csv: bool) -> Response {
     (headers, body).into_response()
 }
 
+/// The answers of an endpoint serving a rendering of a set: 200 with the body as
+/// `description` and `content` say and the headers [`send`] sets, or 304 without a body.
+fn set_answers(
+    description: &str,
+    content_type: &str,
+    content: ContentBuilder,
+) -> BTreeMap<String, RefOr<ResponseDoc>> {
+    let header = |schema: RefOr<Schema>, description: &str| {
+        HeaderBuilder::new()
+            .schema(Some(schema))
+            .description(Some(description))
+            .build()
+    };
+    let text = || String::schema();
+    let ok = ResponseBuilder::new()
+        .description(description)
+        .content(content_type, content)
+        .header(
+            "ETag",
+            header(text(), "Strong entity tag: the SHA-256 of the body"),
+        )
+        .header(
+            "Content-Digest",
+            header(text(), "RFC 9530 sha-256 of the body"),
+        )
+        .header(
+            "Cache-Control",
+            header(text(), "no-cache: revalidate with If-None-Match"),
+        )
+        .header(
+            "Cutpoints-Set-Revision",
+            header(i64::schema(), "The set revision"),
+        )
+        .header(
+            "Cutpoints-Set-Digest",
+            header(text(), "meta.digest of the set"),
+        );
+    let not_modified = ResponseBuilder::new()
+        .description("If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body");
+    BTreeMap::from([
+        ("200".to_string(), ok.into()),
+        ("304".to_string(), not_modified.into()),
+    ])
+}
+
+/// The content of a JSON rendering: the published set's own schema.
+fn json_set() -> ContentBuilder {
+    ContentBuilder::new().schema(Some(Ref::from_schema_name("PublishedSet")))
+}
+
+/// The answers of `GET /api/v1/published`.
+pub struct SetAnswers;
+
+impl IntoResponses for SetAnswers {
+    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
+        let description = "The set in force: RFC 8785 canonical JSON, signed";
+        set_answers(description, "application/json", json_set())
+    }
+}
+
+/// The answers of `GET /api/v1/published.csv`.
+pub struct SetCsvAnswers;
+
+impl IntoResponses for SetCsvAnswers {
+    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
+        let description = "The set as RFC 4180 CSV, one row per metric, with a header row";
+        let csv = ContentBuilder::new().schema(Some(String::schema()));
+        set_answers(description, "text/csv", csv)
+    }
+}
+
+/// The answers of `GET /api/v1/published/{key}` when the metric has a version in force.
+pub struct MetricSetAnswers;
+
+impl IntoResponses for MetricSetAnswers {
+    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
+        let description = "The set narrowed to one metric, with its own digest and signature";
+        set_answers(description, "application/json", json_set())
+    }
+}
+
 async fn rendered(
     state: &AppState,
     q: &TimesQuery,
@@ -144,14 +231,7 @@ async fn rendered(
 #[utoipa::path(get, path = "/v1/published", operation_id = "getPublishedSet", tag = "published",
     params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set in force: RFC 8785 canonical JSON, signed", body = ref("#/components/schemas/PublishedSet"), headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        SetAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set(
@@ -168,14 +248,7 @@ pub async fn set(
 #[utoipa::path(get, path = "/v1/published.csv", operation_id = "getPublishedSetCsv", tag = "published",
     params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set as RFC 4180 CSV, one row per metric, with a header row", body = String, content_type = "text/csv", headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        SetCsvAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
 pub async fn set_csv(
@@ -193,14 +266,7 @@ pub async fn set_csv(
 #[utoipa::path(get, path = "/v1/published/{key}", operation_id = "getPublishedMetric", tag = "published",
     params(("key" = String, Path, description = "Metric key"), TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set narrowed to one metric, with its own digest and signature", body = ref("#/components/schemas/PublishedSet"), headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        MetricSetAnswers,
         BadRequest, Unauthenticated,
         (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
         Unavailable,
