@@ -14,10 +14,12 @@ use super::openapi::{
     Unauthenticated, Unavailable,
 };
 use crate::domain::Problems;
+use crate::domain::User;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, Inbox, ProposalView, RevisionInput};
 use crate::ops::versions::VersionView;
+use crate::store::Store;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::{ApiError, ErrorBody};
@@ -36,6 +38,45 @@ impl FromRequestParts<AppState> for ProposalId {
         raw.parse()
             .map(ProposalId)
             .map_err(|_| ApiError::not_found(format!("no proposal with id {raw:?}")))
+    }
+}
+
+/// A call about one proposal: the caller's credential, checked first, and the proposal named
+/// in the path.
+pub struct ProposalCall {
+    state: AppState,
+    caller: ApiCaller,
+    id: i64,
+}
+
+impl FromRequestParts<AppState> for ProposalCall {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let caller = ApiCaller::from_request_parts(parts, state).await?;
+        let ProposalId(id) = ProposalId::from_request_parts(parts, state).await?;
+        Ok(ProposalCall {
+            state: state.clone(),
+            caller,
+            id,
+        })
+    }
+}
+
+impl ProposalCall {
+    /// The store to act on.
+    fn store(&self) -> &Store {
+        &self.state.store
+    }
+
+    /// The caller's account.
+    fn user(&self) -> &User {
+        self.caller.user()
+    }
+
+    /// Answers with the proposal as the caller now sees it.
+    async fn answer(&self, status: StatusCode) -> Result<Response, ApiError> {
+        proposal_response(&self.state, &self.caller, self.id, status).await
     }
 }
 
@@ -101,12 +142,8 @@ pub async fn create(
     params(("id" = i64, Path, description = "Proposal id")),
     responses((status = 200, description = "The proposal", body = ProposalView),
         Unauthenticated, NotFound, Unavailable))]
-pub async fn show(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
-) -> Result<Response, ApiError> {
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+pub async fn show(call: ProposalCall) -> Result<Response, ApiError> {
+    call.answer(StatusCode::OK).await
 }
 
 /// `PUT /api/v1/proposals/{id}`: a new revision (drafts and proposals sent back).
@@ -116,13 +153,11 @@ pub async fn show(
     responses((status = 200, description = "The proposal with its new revision", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn revise(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<RevisionInput>,
 ) -> Result<Response, ApiError> {
-    flow::revise(&state.store, caller.user(), id, &input).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::revise(call.store(), call.user(), call.id, &input).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/submit`: asks for review.
@@ -130,13 +165,9 @@ pub async fn revise(
     params(("id" = i64, Path, description = "Proposal id")),
     responses((status = 200, description = "The proposal, in review", body = ProposalView),
         Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
-pub async fn submit(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
-) -> Result<Response, ApiError> {
-    flow::submit(&state.store, caller.user(), id).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+pub async fn submit(call: ProposalCall) -> Result<Response, ApiError> {
+    flow::submit(call.store(), call.user(), call.id).await?;
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -155,20 +186,18 @@ pub struct CommentInput {
     responses((status = 201, description = "The proposal with the comment", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn comment(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<CommentInput>,
 ) -> Result<Response, ApiError> {
     flow::comment(
-        &state.store,
-        caller.user(),
-        id,
+        call.store(),
+        call.user(),
+        call.id,
         &input.body,
         input.cut.as_deref(),
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::CREATED).await
+    call.answer(StatusCode::CREATED).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -189,9 +218,7 @@ pub struct ReviewInput {
     responses((status = 200, description = "The proposal after the review", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn review(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<ReviewInput>,
 ) -> Result<Response, ApiError> {
     let verdict = Verdict::parse(&input.verdict).ok_or_else(|| {
@@ -204,15 +231,15 @@ pub async fn review(
         ))
     })?;
     flow::review(
-        &state.store,
-        caller.user(),
-        id,
+        call.store(),
+        call.user(),
+        call.id,
         verdict,
         &input.revision_hash,
         &input.comment,
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -233,20 +260,18 @@ pub struct SignoffInput {
     responses((status = 200, description = "The proposal after the sign-off", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Throttled, Unavailable))]
 pub async fn signoff(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<SignoffInput>,
 ) -> Result<Response, ApiError> {
     flow::sign_off(
-        &state.store,
-        caller.user(),
-        id,
+        call.store(),
+        call.user(),
+        call.id,
         &input.revision_hash,
         &input.password,
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -263,13 +288,11 @@ pub struct ReasonInput {
     responses((status = 200, description = "The proposal, withdrawn", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn withdraw(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     OptionalJson(input): OptionalJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::withdraw(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::withdraw(call.store(), call.user(), call.id, &input.reason).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/reject`: a reviewer or signatory rejects it, with a reason.
@@ -279,13 +302,11 @@ pub async fn withdraw(
     responses((status = 200, description = "The proposal, rejected", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn reject(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::reject(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::reject(call.store(), call.user(), call.id, &input.reason).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// A metric's versions, oldest first.
