@@ -8,7 +8,7 @@ use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::metrics::KeyPath;
+use super::metrics::{KeyPath, MetricCall};
 use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
@@ -90,9 +90,11 @@ pub fn mode(text: Option<&str>) -> Result<Mode, ApiError> {
         Unavailable,
     ))]
 pub async fn upload(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        caller,
+        path: KeyPath(key),
+    }: MetricCall,
     ApiQuery(query): ApiQuery<UploadQuery>,
     request: Request,
 ) -> Result<Json<UploadReport>, ApiError> {
@@ -145,9 +147,11 @@ pub struct ObservationList {
     responses((status = 200, description = "The history in the window, oldest first", body = ObservationList),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        path: KeyPath(key),
+        ..
+    }: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<ObservationList>, ApiError> {
     let window = query.window()?;
@@ -165,9 +169,11 @@ pub async fn observations(
     responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations_csv(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        path: KeyPath(key),
+        ..
+    }: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Response, ApiError> {
     let rows = evidence::list(&state.store, key.as_str(), query.window()?).await?;
@@ -195,9 +201,11 @@ pub async fn observations_csv(
     responses((status = 200, description = "The evidence over the window", body = Evidence),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        path: KeyPath(key),
+        ..
+    }: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<Evidence>, ApiError> {
     let evidence = evidence::evidence(

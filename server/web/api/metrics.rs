@@ -7,6 +7,7 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
+use super::Call;
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, TooLarge, Unauthenticated, Unavailable,
 };
@@ -36,6 +37,10 @@ impl FromRequestParts<AppState> for KeyPath {
             .map_err(|e| ApiError::bad_request(e.to_string()))
     }
 }
+
+/// A call about one metric: the caller's credential, checked first, and the metric key in the
+/// path.
+pub type MetricCall = Call<KeyPath>;
 
 /// `POST /api/v1/metrics`: adds a metric to the register (admins and owners).
 #[utoipa::path(post, path = "/v1/metrics", operation_id = "createMetric", tag = "register",
@@ -134,9 +139,11 @@ pub struct OpenProposal {
     responses((status = 200, description = "The metric", body = MetricDetail),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        path: KeyPath(key),
+        ..
+    }: MetricCall,
 ) -> Result<Json<MetricDetail>, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
     let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
@@ -161,9 +168,11 @@ pub async fn show(
     responses((status = 200, description = "The metric as changed", body = Metric),
         BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn edit(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        caller,
+        path: KeyPath(key),
+    }: MetricCall,
     ApiJson(input): ApiJson<MetricEdit>,
 ) -> Result<Json<Metric>, ApiError> {
     Ok(Json(

@@ -9,12 +9,53 @@ pub mod proposals;
 pub mod published;
 
 use axum::Json;
+use axum::extract::FromRequestParts;
+use axum::http::request::Parts;
 use serde::Serialize;
 
+use super::AppState;
 use super::auth::{ApiCaller, Credential};
 use super::error::ApiError;
-use crate::domain::{Role, Username};
+use crate::domain::{Role, User, Username};
+use crate::store::Store;
 use openapi::{Unauthenticated, Unavailable};
+
+/// A call about one thing the path names: the caller's credential, checked first, then `P`,
+/// what the path names (a metric key, a proposal id).
+pub struct Call<P> {
+    pub state: AppState,
+    pub caller: ApiCaller,
+    pub path: P,
+}
+
+impl<P> FromRequestParts<AppState> for Call<P>
+where
+    P: FromRequestParts<AppState, Rejection = ApiError> + Send,
+{
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let caller = ApiCaller::from_request_parts(parts, state).await?;
+        let path = P::from_request_parts(parts, state).await?;
+        Ok(Call {
+            state: state.clone(),
+            caller,
+            path,
+        })
+    }
+}
+
+impl<P> Call<P> {
+    /// The store to act on.
+    pub fn store(&self) -> &Store {
+        &self.state.store
+    }
+
+    /// The caller's account.
+    pub fn user(&self) -> &User {
+        self.caller.user()
+    }
+}
 
 /// Who the credentials belong to.
 #[derive(Serialize, utoipa::ToSchema)]

@@ -8,18 +8,17 @@ use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
-use super::metrics::KeyPath;
+use super::Call;
+use super::metrics::{KeyPath, MetricCall};
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
     Unauthenticated, Unavailable,
 };
 use crate::domain::Problems;
-use crate::domain::User;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
 use crate::ops::proposals::{self as flow, Inbox, ProposalView, RevisionInput};
 use crate::ops::versions::VersionView;
-use crate::store::Store;
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::{ApiError, ErrorBody};
@@ -43,40 +42,17 @@ impl FromRequestParts<AppState> for ProposalId {
 
 /// A call about one proposal: the caller's credential, checked first, and the proposal named
 /// in the path.
-pub struct ProposalCall {
-    state: AppState,
-    caller: ApiCaller,
-    id: i64,
-}
-
-impl FromRequestParts<AppState> for ProposalCall {
-    type Rejection = ApiError;
-
-    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let caller = ApiCaller::from_request_parts(parts, state).await?;
-        let ProposalId(id) = ProposalId::from_request_parts(parts, state).await?;
-        Ok(ProposalCall {
-            state: state.clone(),
-            caller,
-            id,
-        })
-    }
-}
+pub type ProposalCall = Call<ProposalId>;
 
 impl ProposalCall {
-    /// The store to act on.
-    fn store(&self) -> &Store {
-        &self.state.store
-    }
-
-    /// The caller's account.
-    fn user(&self) -> &User {
-        self.caller.user()
+    /// The proposal's id.
+    fn id(&self) -> i64 {
+        self.path.0
     }
 
     /// Answers with the proposal as the caller now sees it.
     async fn answer(&self, status: StatusCode) -> Result<Response, ApiError> {
-        proposal_response(&self.state, &self.caller, self.id, status).await
+        proposal_response(&self.state, &self.caller, self.id(), status).await
     }
 }
 
@@ -128,9 +104,11 @@ async fn proposal_response(
         (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
         TooLarge, NotJson, Unavailable))]
 pub async fn create(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        caller,
+        path: KeyPath(key),
+    }: MetricCall,
     ApiJson(input): ApiJson<ContentInput>,
 ) -> Result<Response, ApiError> {
     let id = flow::propose(&state.store, caller.user(), key.as_str(), &input).await?;
@@ -156,7 +134,7 @@ pub async fn revise(
     call: ProposalCall,
     ApiJson(input): ApiJson<RevisionInput>,
 ) -> Result<Response, ApiError> {
-    flow::revise(call.store(), call.user(), call.id, &input).await?;
+    flow::revise(call.store(), call.user(), call.id(), &input).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -166,7 +144,7 @@ pub async fn revise(
     responses((status = 200, description = "The proposal, in review", body = ProposalView),
         Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
 pub async fn submit(call: ProposalCall) -> Result<Response, ApiError> {
-    flow::submit(call.store(), call.user(), call.id).await?;
+    flow::submit(call.store(), call.user(), call.id()).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -192,7 +170,7 @@ pub async fn comment(
     flow::comment(
         call.store(),
         call.user(),
-        call.id,
+        call.id(),
         &input.body,
         input.cut.as_deref(),
     )
@@ -233,7 +211,7 @@ pub async fn review(
     flow::review(
         call.store(),
         call.user(),
-        call.id,
+        call.id(),
         verdict,
         &input.revision_hash,
         &input.comment,
@@ -266,7 +244,7 @@ pub async fn signoff(
     flow::sign_off(
         call.store(),
         call.user(),
-        call.id,
+        call.id(),
         &input.revision_hash,
         &input.password,
     )
@@ -291,7 +269,7 @@ pub async fn withdraw(
     call: ProposalCall,
     OptionalJson(input): OptionalJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::withdraw(call.store(), call.user(), call.id, &input.reason).await?;
+    flow::withdraw(call.store(), call.user(), call.id(), &input.reason).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -305,7 +283,7 @@ pub async fn reject(
     call: ProposalCall,
     ApiJson(input): ApiJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::reject(call.store(), call.user(), call.id, &input.reason).await?;
+    flow::reject(call.store(), call.user(), call.id(), &input.reason).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -323,9 +301,11 @@ pub struct MetricHistory {
     responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn history(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    MetricCall {
+        state,
+        path: KeyPath(key),
+        ..
+    }: MetricCall,
 ) -> Result<Json<MetricHistory>, ApiError> {
     let metric = metrics::get(&state.store, key.as_str()).await?;
     let versions = crate::ops::versions::history(&state.store, &metric).await?;
