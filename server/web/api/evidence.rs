@@ -8,7 +8,7 @@ use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::metrics::{KeyPath, MetricCall};
+use super::metrics::MetricCall;
 use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
@@ -90,16 +90,17 @@ pub fn mode(text: Option<&str>) -> Result<Mode, ApiError> {
         Unavailable,
     ))]
 pub async fn upload(
-    MetricCall {
-        state,
-        caller,
-        path: KeyPath(key),
-    }: MetricCall,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<UploadQuery>,
     request: Request,
 ) -> Result<Json<UploadReport>, ApiError> {
     // Who may comes before what they sent, and before reading it.
-    uploads::may_upload_to(&state.store, &Uploader::User(caller.user()), key.as_str()).await?;
+    uploads::may_upload_to(
+        call.store(),
+        &Uploader::User(call.user()),
+        call.key().as_str(),
+    )
+    .await?;
     let mode = mode(query.mode.as_deref())?;
     let content_type = request
         .headers()
@@ -119,11 +120,11 @@ pub async fn upload(
             ));
         }
     };
-    let bytes = read_body(request.into_body(), state.config.upload_limit).await?;
+    let bytes = read_body(request.into_body(), call.state.config.upload_limit).await?;
     let report = uploads::upload(
-        &state.store,
-        Uploader::User(caller.user()),
-        key.as_str(),
+        call.store(),
+        Uploader::User(call.user()),
+        call.key().as_str(),
         mode,
         format,
         bytes,
@@ -147,17 +148,13 @@ pub struct ObservationList {
     responses((status = 200, description = "The history in the window, oldest first", body = ObservationList),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations(
-    MetricCall {
-        state,
-        path: KeyPath(key),
-        ..
-    }: MetricCall,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<ObservationList>, ApiError> {
     let window = query.window()?;
-    let observations = evidence::list(&state.store, key.as_str(), window).await?;
+    let observations = evidence::list(call.store(), call.key().as_str(), window).await?;
     Ok(Json(ObservationList {
-        metric: key.to_string(),
+        metric: call.key().to_string(),
         observations,
     }))
 }
@@ -169,18 +166,14 @@ pub async fn observations(
     responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations_csv(
-    MetricCall {
-        state,
-        path: KeyPath(key),
-        ..
-    }: MetricCall,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Response, ApiError> {
-    let rows = evidence::list(&state.store, key.as_str(), query.window()?).await?;
+    let rows = evidence::list(call.store(), call.key().as_str(), query.window()?).await?;
     let body = tokio::task::spawn_blocking(move || crate::domain::observations::to_csv(&rows))
         .await
         .map_err(|_| ApiError::internal())?;
-    let disposition = format!("attachment; filename=\"{key}-history.csv\"");
+    let disposition = format!("attachment; filename=\"{}-history.csv\"", call.key());
     Ok((
         [
             (
@@ -201,16 +194,12 @@ pub async fn observations_csv(
     responses((status = 200, description = "The evidence over the window", body = Evidence),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
-    MetricCall {
-        state,
-        path: KeyPath(key),
-        ..
-    }: MetricCall,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<Evidence>, ApiError> {
     let evidence = evidence::evidence(
-        &state.store,
-        key.as_str(),
+        call.store(),
+        call.key().as_str(),
         query.window()?,
         query.critical_share()?,
     )

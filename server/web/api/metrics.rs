@@ -42,6 +42,13 @@ impl FromRequestParts<AppState> for KeyPath {
 /// path.
 pub type MetricCall = Call<KeyPath>;
 
+impl MetricCall {
+    /// The metric's key.
+    pub fn key(&self) -> &MetricKey {
+        &self.path.0
+    }
+}
+
 /// `POST /api/v1/metrics`: adds a metric to the register (admins and owners).
 #[utoipa::path(post, path = "/v1/metrics", operation_id = "createMetric", tag = "register",
     request_body = NewMetric,
@@ -138,15 +145,9 @@ pub struct OpenProposal {
     params(("key" = String, Path, description = "Metric key")),
     responses((status = 200, description = "The metric", body = MetricDetail),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
-pub async fn show(
-    MetricCall {
-        state,
-        path: KeyPath(key),
-        ..
-    }: MetricCall,
-) -> Result<Json<MetricDetail>, ApiError> {
-    let metric = metrics::get(&state.store, key.as_str()).await?;
-    let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
+pub async fn show(call: MetricCall) -> Result<Json<MetricDetail>, ApiError> {
+    let metric = metrics::get(call.store(), call.key().as_str()).await?;
+    let thresholds = crate::ops::versions::thresholds(call.store(), &metric).await?;
     let (in_force, scheduled) = crate::ops::versions::current(&thresholds.history);
     let open_proposal = thresholds.open_proposal().map(|p| OpenProposal {
         id: p.id,
@@ -168,14 +169,10 @@ pub async fn show(
     responses((status = 200, description = "The metric as changed", body = Metric),
         BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn edit(
-    MetricCall {
-        state,
-        caller,
-        path: KeyPath(key),
-    }: MetricCall,
+    call: MetricCall,
     ApiJson(input): ApiJson<MetricEdit>,
 ) -> Result<Json<Metric>, ApiError> {
     Ok(Json(
-        ops::metrics::edit(&state.store, caller.user(), key.as_str(), &input).await?,
+        ops::metrics::edit(call.store(), call.user(), call.key().as_str(), &input).await?,
     ))
 }

@@ -9,7 +9,7 @@ use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
 use super::Call;
-use super::metrics::{KeyPath, MetricCall};
+use super::metrics::MetricCall;
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
     Unauthenticated, Unavailable,
@@ -104,15 +104,11 @@ async fn proposal_response(
         (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
         TooLarge, NotJson, Unavailable))]
 pub async fn create(
-    MetricCall {
-        state,
-        caller,
-        path: KeyPath(key),
-    }: MetricCall,
+    call: MetricCall,
     ApiJson(input): ApiJson<ContentInput>,
 ) -> Result<Response, ApiError> {
-    let id = flow::propose(&state.store, caller.user(), key.as_str(), &input).await?;
-    proposal_response(&state, &caller, id, StatusCode::CREATED).await
+    let id = flow::propose(call.store(), call.user(), call.key().as_str(), &input).await?;
+    proposal_response(&call.state, &call.caller, id, StatusCode::CREATED).await
 }
 
 /// `GET /api/v1/proposals/{id}`.
@@ -300,15 +296,9 @@ pub struct MetricHistory {
     params(("key" = String, Path, description = "Metric key")),
     responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
-pub async fn history(
-    MetricCall {
-        state,
-        path: KeyPath(key),
-        ..
-    }: MetricCall,
-) -> Result<Json<MetricHistory>, ApiError> {
-    let metric = metrics::get(&state.store, key.as_str()).await?;
-    let versions = crate::ops::versions::history(&state.store, &metric).await?;
+pub async fn history(call: MetricCall) -> Result<Json<MetricHistory>, ApiError> {
+    let metric = metrics::get(call.store(), call.key().as_str()).await?;
+    let versions = crate::ops::versions::history(call.store(), &metric).await?;
     Ok(Json(MetricHistory {
         metric: metric.key.to_string(),
         versions,
