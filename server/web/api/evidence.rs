@@ -2,7 +2,7 @@
 //! evidence for agreeing its thresholds.
 
 use axum::Json;
-use axum::extract::{FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequestParts, Request, State};
 use axum::http::request::Parts;
 use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 
 use super::metrics::MetricCall;
 use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
+use super::path_params;
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
 use crate::domain::observations::Mode;
@@ -247,9 +248,7 @@ impl FromRequestParts<AppState> for VersionPath {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path((key, number)) = Path::<(String, String)>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let (key, number): (String, String) = path_params(parts, state).await?;
         let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
         let number = number
             .parse()

@@ -1,16 +1,16 @@
 //! `/api/v1/metrics`: the register.
 
 use axum::Json;
-use axum::extract::{FromRequestParts, Path, State};
+use axum::extract::{FromRequestParts, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::Call;
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, TooLarge, Unauthenticated, Unavailable,
 };
+use super::{Call, path_params};
 use crate::domain::proposal::ProposalState;
 use crate::domain::{Metric, MetricKey};
 use crate::ops;
@@ -29,9 +29,7 @@ impl FromRequestParts<AppState> for KeyPath {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path(raw) = Path::<String>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let raw: String = path_params(parts, state).await?;
         MetricKey::parse(&raw)
             .map(KeyPath)
             .map_err(|e| ApiError::bad_request(e.to_string()))

@@ -9,9 +9,10 @@ pub mod proposals;
 pub mod published;
 
 use axum::Json;
-use axum::extract::FromRequestParts;
+use axum::extract::{FromRequestParts, Path};
 use axum::http::request::Parts;
 use serde::Serialize;
+use serde::de::DeserializeOwned;
 
 use super::AppState;
 use super::auth::{ApiCaller, Credential};
@@ -55,6 +56,18 @@ impl<P> Call<P> {
     pub fn user(&self) -> &User {
         self.caller.user()
     }
+}
+
+/// The request's path parameters as `T`, still text to be checked; 400 in JSON when the
+/// path does not give them.
+pub async fn path_params<T>(parts: &mut Parts, state: &AppState) -> Result<T, ApiError>
+where
+    T: DeserializeOwned + Send,
+{
+    let Path(params) = Path::<T>::from_request_parts(parts, state)
+        .await
+        .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+    Ok(params)
 }
 
 /// Who the credentials belong to.

@@ -1,19 +1,19 @@
 //! `/api/v1/proposals` and the workflow endpoints under `/api/v1/metrics/{key}`.
 
 use axum::Json;
-use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequest, FromRequestParts, Request, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
-use super::Call;
 use super::metrics::MetricCall;
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
     Unauthenticated, Unavailable,
 };
+use super::{Call, path_params};
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
@@ -31,9 +31,7 @@ impl FromRequestParts<AppState> for ProposalId {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path(raw) = Path::<String>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let raw: String = path_params(parts, state).await?;
         raw.parse()
             .map(ProposalId)
             .map_err(|_| ApiError::not_found(format!("no proposal with id {raw:?}")))
