@@ -2,7 +2,6 @@
 //! dashboards and pipelines, byte for byte the same for the same request, with strong ETags
 //! and `If-None-Match` (RFC 9110 §13.1.2).
 
-use std::collections::BTreeMap;
 use std::sync::Arc;
 
 use axum::Json;
@@ -11,13 +10,11 @@ use axum::http::request::Parts;
 use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
-use utoipa::openapi::content::ContentBuilder;
-use utoipa::openapi::header::HeaderBuilder;
-use utoipa::openapi::response::{Response as ResponseDoc, ResponseBuilder};
-use utoipa::openapi::{Ref, RefOr, Schema};
-use utoipa::{IntoResponses, PartialSchema};
 
-use super::openapi::{BadRequest, Forbidden, NotJson, Unauthenticated, Unavailable};
+use super::openapi::{
+    BadRequest, Forbidden, MetricSetAnswers, NotJson, SetAnswers, SetCsvAnswers, Unauthenticated,
+    Unavailable,
+};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
 use crate::ops::publication::Change;
@@ -137,94 +134,40 @@ fn send(request: &HeaderMap, r: &Rendered, csv: bool) -> Response {
     (headers, body).into_response()
 }
 
-/// The answers of an endpoint serving a rendering of a set: 200 with the body as
-/// `description` and `content` say and the headers [`send`] sets, or 304 without a body.
-fn set_answers(
-    description: &str,
-    content_type: &str,
-    content: ContentBuilder,
-) -> BTreeMap<String, RefOr<ResponseDoc>> {
-    let header = |schema: RefOr<Schema>, description: &str| {
-        HeaderBuilder::new()
-            .schema(Some(schema))
-            .description(Some(description))
-            .build()
-    };
-    let text = || String::schema();
-    let ok = ResponseBuilder::new()
-        .description(description)
-        .content(content_type, content)
-        .header(
-            "ETag",
-            header(text(), "Strong entity tag: the SHA-256 of the body"),
-        )
-        .header(
-            "Content-Digest",
-            header(text(), "RFC 9530 sha-256 of the body"),
-        )
-        .header(
-            "Cache-Control",
-            header(text(), "no-cache: revalidate with If-None-Match"),
-        )
-        .header(
-            "Cutpoints-Set-Revision",
-            header(i64::schema(), "The set revision"),
-        )
-        .header(
-            "Cutpoints-Set-Digest",
-            header(text(), "meta.digest of the set"),
-        );
-    let not_modified = ResponseBuilder::new()
-        .description("If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body");
-    BTreeMap::from([
-        ("200".to_string(), ok.into()),
-        ("304".to_string(), not_modified.into()),
-    ])
+/// A reader's request for a rendering of a set: the entity tags the reader holds and the
+/// times asked for. The reader is checked first.
+pub struct SetRequest {
+    state: AppState,
+    headers: HeaderMap,
+    times: TimesQuery,
 }
 
-/// The content of a JSON rendering: the published set's own schema.
-fn json_set() -> ContentBuilder {
-    ContentBuilder::new().schema(Some(Ref::from_schema_name("PublishedSet")))
-}
+impl FromRequestParts<AppState> for SetRequest {
+    type Rejection = ApiError;
 
-/// The answers of `GET /api/v1/published`.
-pub struct SetAnswers;
-
-impl IntoResponses for SetAnswers {
-    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
-        let description = "The set in force: RFC 8785 canonical JSON, signed";
-        set_answers(description, "application/json", json_set())
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        Reader::from_request_parts(parts, state).await?;
+        let ApiQuery(times) = ApiQuery::<TimesQuery>::from_request_parts(parts, state).await?;
+        Ok(SetRequest {
+            state: state.clone(),
+            headers: parts.headers.clone(),
+            times,
+        })
     }
 }
 
-/// The answers of `GET /api/v1/published.csv`.
-pub struct SetCsvAnswers;
-
-impl IntoResponses for SetCsvAnswers {
-    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
-        let description = "The set as RFC 4180 CSV, one row per metric, with a header row";
-        let csv = ContentBuilder::new().schema(Some(String::schema()));
-        set_answers(description, "text/csv", csv)
+impl SetRequest {
+    /// The set in force at the times asked for, narrowed to the metric `only` when given.
+    async fn rendered(&self, only: Option<&str>) -> Result<Arc<Rendered>, ApiError> {
+        let (as_of, known_at) = self.times.times()?;
+        let (publisher, store) = (&self.state.publisher, &self.state.store);
+        Ok(crate::ops::publication::at(publisher, store, as_of, known_at, only).await?)
     }
-}
 
-/// The answers of `GET /api/v1/published/{key}` when the metric has a version in force.
-pub struct MetricSetAnswers;
-
-impl IntoResponses for MetricSetAnswers {
-    fn responses() -> BTreeMap<String, RefOr<ResponseDoc>> {
-        let description = "The set narrowed to one metric, with its own digest and signature";
-        set_answers(description, "application/json", json_set())
+    /// Answers with one rendering of `set`, or 304 when the reader's copy is current.
+    fn send(&self, set: &Rendered, csv: bool) -> Response {
+        send(&self.headers, set, csv)
     }
-}
-
-async fn rendered(
-    state: &AppState,
-    q: &TimesQuery,
-    only: Option<&str>,
-) -> Result<Arc<Rendered>, ApiError> {
-    let (as_of, known_at) = q.times()?;
-    Ok(crate::ops::publication::at(&state.publisher, &state.store, as_of, known_at, only).await?)
 }
 
 /// `GET /api/v1/published[?as_of=T&known_at=R]`.
@@ -234,14 +177,9 @@ async fn rendered(
         SetAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
-pub async fn set(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
-    let r = rendered(&state, &q, None).await?;
-    Ok(send(&headers, &r, false))
+pub async fn set(request: SetRequest) -> Result<Response, ApiError> {
+    let r = request.rendered(None).await?;
+    Ok(request.send(&r, false))
 }
 
 /// `GET /api/v1/published.csv`.
@@ -251,14 +189,9 @@ pub async fn set(
         SetCsvAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
-pub async fn set_csv(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
-    let r = rendered(&state, &q, None).await?;
-    Ok(send(&headers, &r, true))
+pub async fn set_csv(request: SetRequest) -> Result<Response, ApiError> {
+    let r = request.rendered(None).await?;
+    Ok(request.send(&r, true))
 }
 
 /// `GET /api/v1/published/{key}`: the set narrowed to one metric (its own digest and
@@ -271,22 +204,16 @@ pub async fn set_csv(
         (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
         Unavailable,
     ))]
-pub async fn one(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    Path(key): Path<String>,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
+pub async fn one(request: SetRequest, Path(key): Path<String>) -> Result<Response, ApiError> {
     let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
-    crate::ops::metrics::get(&state.store, key.as_str()).await?;
-    let r = rendered(&state, &q, Some(key.as_str())).await?;
+    crate::ops::metrics::get(&request.state.store, key.as_str()).await?;
+    let r = request.rendered(Some(key.as_str())).await?;
     if r.document["set"].get(key.as_str()).is_none() {
         return Err(ApiError::not_found(format!(
             "no version of {key} is in force at the requested time"
         )));
     }
-    Ok(send(&headers, &r, false))
+    Ok(request.send(&r, false))
 }
 
 #[derive(Deserialize, Default, utoipa::IntoParams)]
