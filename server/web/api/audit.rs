@@ -235,7 +235,7 @@ pub async fn exceptions(
         BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
 pub async fn timeline(call: MetricCall) -> Result<Json<Timeline>, ApiError> {
     Ok(Json(
-        audit::timeline(call.store(), call.user(), call.key().as_str()).await?,
+        audit::timeline(&call.state.store, call.user(), call.key().as_str()).await?,
     ))
 }
 

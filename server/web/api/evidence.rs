@@ -97,7 +97,7 @@ pub async fn upload(
 ) -> Result<Json<UploadReport>, ApiError> {
     // Who may comes before what they sent, and before reading it.
     uploads::may_upload_to(
-        call.store(),
+        &call.state.store,
         &Uploader::User(call.user()),
         call.key().as_str(),
     )
@@ -123,7 +123,7 @@ pub async fn upload(
     };
     let bytes = read_body(request.into_body(), call.state.config.upload_limit).await?;
     let report = uploads::upload(
-        call.store(),
+        &call.state.store,
         Uploader::User(call.user()),
         call.key().as_str(),
         mode,
@@ -153,7 +153,7 @@ pub async fn observations(
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<ObservationList>, ApiError> {
     let window = query.window()?;
-    let observations = evidence::list(call.store(), call.key().as_str(), window).await?;
+    let observations = evidence::list(&call.state.store, call.key().as_str(), window).await?;
     Ok(Json(ObservationList {
         metric: call.key().to_string(),
         observations,
@@ -170,7 +170,7 @@ pub async fn observations_csv(
     call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Response, ApiError> {
-    let rows = evidence::list(call.store(), call.key().as_str(), query.window()?).await?;
+    let rows = evidence::list(&call.state.store, call.key().as_str(), query.window()?).await?;
     let body = tokio::task::spawn_blocking(move || crate::domain::observations::to_csv(&rows))
         .await
         .map_err(|_| ApiError::internal())?;
@@ -199,7 +199,7 @@ pub async fn show(
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<Evidence>, ApiError> {
     let evidence = evidence::evidence(
-        call.store(),
+        &call.state.store,
         call.key().as_str(),
         query.window()?,
         query.critical_share()?,

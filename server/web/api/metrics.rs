@@ -144,8 +144,8 @@ pub struct OpenProposal {
     responses((status = 200, description = "The metric", body = MetricDetail),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(call: MetricCall) -> Result<Json<MetricDetail>, ApiError> {
-    let metric = metrics::get(call.store(), call.key().as_str()).await?;
-    let thresholds = crate::ops::versions::thresholds(call.store(), &metric).await?;
+    let metric = metrics::get(&call.state.store, call.key().as_str()).await?;
+    let thresholds = crate::ops::versions::thresholds(&call.state.store, &metric).await?;
     let (in_force, scheduled) = crate::ops::versions::current(&thresholds.history);
     let open_proposal = thresholds.open_proposal().map(|p| OpenProposal {
         id: p.id,
@@ -171,6 +171,6 @@ pub async fn edit(
     ApiJson(input): ApiJson<MetricEdit>,
 ) -> Result<Json<Metric>, ApiError> {
     Ok(Json(
-        ops::metrics::edit(call.store(), call.user(), call.key().as_str(), &input).await?,
+        ops::metrics::edit(&call.state.store, call.user(), call.key().as_str(), &input).await?,
     ))
 }

@@ -18,7 +18,6 @@ use super::AppState;
 use super::auth::{ApiCaller, Credential};
 use super::error::ApiError;
 use crate::domain::{Role, User, Username};
-use crate::store::Store;
 use openapi::{Unauthenticated, Unavailable};
 
 /// A call about one thing the path names: the caller's credential, checked first, then `P`,
@@ -47,11 +46,6 @@ where
 }
 
 impl<P> Call<P> {
-    /// The store to act on.
-    pub fn store(&self) -> &Store {
-        &self.state.store
-    }
-
     /// The caller's account.
     pub fn user(&self) -> &User {
         self.caller.user()

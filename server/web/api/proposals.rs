@@ -105,7 +105,7 @@ pub async fn create(
     call: MetricCall,
     ApiJson(input): ApiJson<ContentInput>,
 ) -> Result<Response, ApiError> {
-    let id = flow::propose(call.store(), call.user(), call.key().as_str(), &input).await?;
+    let id = flow::propose(&call.state.store, call.user(), call.key().as_str(), &input).await?;
     proposal_response(&call.state, &call.caller, id, StatusCode::CREATED).await
 }
 
@@ -128,7 +128,7 @@ pub async fn revise(
     call: ProposalCall,
     ApiJson(input): ApiJson<RevisionInput>,
 ) -> Result<Response, ApiError> {
-    flow::revise(call.store(), call.user(), call.id(), &input).await?;
+    flow::revise(&call.state.store, call.user(), call.id(), &input).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -138,7 +138,7 @@ pub async fn revise(
     responses((status = 200, description = "The proposal, in review", body = ProposalView),
         Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
 pub async fn submit(call: ProposalCall) -> Result<Response, ApiError> {
-    flow::submit(call.store(), call.user(), call.id()).await?;
+    flow::submit(&call.state.store, call.user(), call.id()).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -162,7 +162,7 @@ pub async fn comment(
     ApiJson(input): ApiJson<CommentInput>,
 ) -> Result<Response, ApiError> {
     flow::comment(
-        call.store(),
+        &call.state.store,
         call.user(),
         call.id(),
         &input.body,
@@ -203,7 +203,7 @@ pub async fn review(
         ))
     })?;
     flow::review(
-        call.store(),
+        &call.state.store,
         call.user(),
         call.id(),
         verdict,
@@ -236,7 +236,7 @@ pub async fn signoff(
     ApiJson(input): ApiJson<SignoffInput>,
 ) -> Result<Response, ApiError> {
     flow::sign_off(
-        call.store(),
+        &call.state.store,
         call.user(),
         call.id(),
         &input.revision_hash,
@@ -263,7 +263,7 @@ pub async fn withdraw(
     call: ProposalCall,
     OptionalJson(input): OptionalJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::withdraw(call.store(), call.user(), call.id(), &input.reason).await?;
+    flow::withdraw(&call.state.store, call.user(), call.id(), &input.reason).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -277,7 +277,7 @@ pub async fn reject(
     call: ProposalCall,
     ApiJson(input): ApiJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::reject(call.store(), call.user(), call.id(), &input.reason).await?;
+    flow::reject(&call.state.store, call.user(), call.id(), &input.reason).await?;
     call.answer(StatusCode::OK).await
 }
 
@@ -295,8 +295,8 @@ pub struct MetricHistory {
     responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn history(call: MetricCall) -> Result<Json<MetricHistory>, ApiError> {
-    let metric = metrics::get(call.store(), call.key().as_str()).await?;
-    let versions = crate::ops::versions::history(call.store(), &metric).await?;
+    let metric = metrics::get(&call.state.store, call.key().as_str()).await?;
+    let versions = crate::ops::versions::history(&call.state.store, &metric).await?;
     Ok(Json(MetricHistory {
         metric: metric.key.to_string(),
         versions,
