@@ -6,7 +6,7 @@ use axum::http::{HeaderMap, HeaderName, HeaderValue, header};
 use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
-use super::metrics::KeyPath;
+use super::metrics::MetricCall;
 use super::openapi::{BadRequest, Forbidden, NotFound, Unauthenticated, Unavailable};
 use crate::domain::MetricKey;
 use crate::domain::csv_out::{Cell, CsvOut};
@@ -233,13 +233,9 @@ pub async fn exceptions(
     params(("key" = String, Path, description = "Metric key")),
     responses((status = 200, description = "Every change to the metric's thresholds, with who, when and why", body = Timeline),
         BadRequest, Unauthenticated, Forbidden, NotFound, Unavailable))]
-pub async fn timeline(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
-) -> Result<Json<Timeline>, ApiError> {
+pub async fn timeline(call: MetricCall) -> Result<Json<Timeline>, ApiError> {
     Ok(Json(
-        audit::timeline(&state.store, caller.user(), key.as_str()).await?,
+        audit::timeline(&call.state.store, call.user(), call.key().as_str()).await?,
     ))
 }
 

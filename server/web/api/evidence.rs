@@ -2,14 +2,15 @@
 //! evidence for agreeing its thresholds.
 
 use axum::Json;
-use axum::extract::{FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequestParts, Request, State};
 use axum::http::request::Parts;
 use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::metrics::KeyPath;
+use super::metrics::MetricCall;
 use super::openapi::{BadRequest, NotFound, Unauthenticated, Unavailable};
+use super::path_params;
 use super::proposals::ProposalId;
 use crate::domain::MetricKey;
 use crate::domain::observations::Mode;
@@ -90,14 +91,17 @@ pub fn mode(text: Option<&str>) -> Result<Mode, ApiError> {
         Unavailable,
     ))]
 pub async fn upload(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<UploadQuery>,
     request: Request,
 ) -> Result<Json<UploadReport>, ApiError> {
     // Who may comes before what they sent, and before reading it.
-    uploads::may_upload_to(&state.store, &Uploader::User(caller.user()), key.as_str()).await?;
+    uploads::may_upload_to(
+        &call.state.store,
+        &Uploader::User(call.user()),
+        call.key().as_str(),
+    )
+    .await?;
     let mode = mode(query.mode.as_deref())?;
     let content_type = request
         .headers()
@@ -117,11 +121,11 @@ pub async fn upload(
             ));
         }
     };
-    let bytes = read_body(request.into_body(), state.config.upload_limit).await?;
+    let bytes = read_body(request.into_body(), call.state.config.upload_limit).await?;
     let report = uploads::upload(
-        &state.store,
-        Uploader::User(caller.user()),
-        key.as_str(),
+        &call.state.store,
+        Uploader::User(call.user()),
+        call.key().as_str(),
         mode,
         format,
         bytes,
@@ -145,15 +149,13 @@ pub struct ObservationList {
     responses((status = 200, description = "The history in the window, oldest first", body = ObservationList),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<ObservationList>, ApiError> {
     let window = query.window()?;
-    let observations = evidence::list(&state.store, key.as_str(), window).await?;
+    let observations = evidence::list(&call.state.store, call.key().as_str(), window).await?;
     Ok(Json(ObservationList {
-        metric: key.to_string(),
+        metric: call.key().to_string(),
         observations,
     }))
 }
@@ -165,16 +167,14 @@ pub async fn observations(
     responses((status = 200, description = "period_start,value rows, oldest first, CRLF line ends", content_type = "text/csv", body = String),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn observations_csv(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Response, ApiError> {
-    let rows = evidence::list(&state.store, key.as_str(), query.window()?).await?;
+    let rows = evidence::list(&call.state.store, call.key().as_str(), query.window()?).await?;
     let body = tokio::task::spawn_blocking(move || crate::domain::observations::to_csv(&rows))
         .await
         .map_err(|_| ApiError::internal())?;
-    let disposition = format!("attachment; filename=\"{key}-history.csv\"");
+    let disposition = format!("attachment; filename=\"{}-history.csv\"", call.key());
     Ok((
         [
             (
@@ -195,14 +195,12 @@ pub async fn observations_csv(
     responses((status = 200, description = "The evidence over the window", body = Evidence),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
 pub async fn show(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiQuery(query): ApiQuery<WindowQuery>,
 ) -> Result<Json<Evidence>, ApiError> {
     let evidence = evidence::evidence(
-        &state.store,
-        key.as_str(),
+        &call.state.store,
+        call.key().as_str(),
         query.window()?,
         query.critical_share()?,
     )
@@ -250,9 +248,7 @@ impl FromRequestParts<AppState> for VersionPath {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path((key, number)) = Path::<(String, String)>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let (key, number): (String, String) = path_params(parts, state).await?;
         let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
         let number = number
             .parse()

@@ -1,7 +1,7 @@
 //! `/api/v1/metrics`: the register.
 
 use axum::Json;
-use axum::extract::{FromRequestParts, Path, State};
+use axum::extract::{FromRequestParts, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, TooLarge, Unauthenticated, Unavailable,
 };
+use super::{Call, path_params};
 use crate::domain::proposal::ProposalState;
 use crate::domain::{Metric, MetricKey};
 use crate::ops;
@@ -28,12 +29,21 @@ impl FromRequestParts<AppState> for KeyPath {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path(raw) = Path::<String>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let raw: String = path_params(parts, state).await?;
         MetricKey::parse(&raw)
             .map(KeyPath)
             .map_err(|e| ApiError::bad_request(e.to_string()))
+    }
+}
+
+/// A call about one metric: the caller's credential, checked first, and the metric key in the
+/// path.
+pub type MetricCall = Call<KeyPath>;
+
+impl MetricCall {
+    /// The metric's key.
+    pub fn key(&self) -> &MetricKey {
+        &self.path.0
     }
 }
 
@@ -133,13 +143,9 @@ pub struct OpenProposal {
     params(("key" = String, Path, description = "Metric key")),
     responses((status = 200, description = "The metric", body = MetricDetail),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
-pub async fn show(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
-) -> Result<Json<MetricDetail>, ApiError> {
-    let metric = metrics::get(&state.store, key.as_str()).await?;
-    let thresholds = crate::ops::versions::thresholds(&state.store, &metric).await?;
+pub async fn show(call: MetricCall) -> Result<Json<MetricDetail>, ApiError> {
+    let metric = metrics::get(&call.state.store, call.key().as_str()).await?;
+    let thresholds = crate::ops::versions::thresholds(&call.state.store, &metric).await?;
     let (in_force, scheduled) = crate::ops::versions::current(&thresholds.history);
     let open_proposal = thresholds.open_proposal().map(|p| OpenProposal {
         id: p.id,
@@ -161,12 +167,10 @@ pub async fn show(
     responses((status = 200, description = "The metric as changed", body = Metric),
         BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn edit(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiJson(input): ApiJson<MetricEdit>,
 ) -> Result<Json<Metric>, ApiError> {
     Ok(Json(
-        ops::metrics::edit(&state.store, caller.user(), key.as_str(), &input).await?,
+        ops::metrics::edit(&call.state.store, call.user(), call.key().as_str(), &input).await?,
     ))
 }

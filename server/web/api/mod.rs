@@ -9,12 +9,60 @@ pub mod proposals;
 pub mod published;
 
 use axum::Json;
+use axum::extract::{FromRequestParts, Path};
+use axum::http::request::Parts;
 use serde::Serialize;
+use serde::de::DeserializeOwned;
 
+use super::AppState;
 use super::auth::{ApiCaller, Credential};
 use super::error::ApiError;
-use crate::domain::{Role, Username};
+use crate::domain::{Role, User, Username};
 use openapi::{Unauthenticated, Unavailable};
+
+/// A call about one thing the path names: the caller's credential, checked first, then `P`,
+/// what the path names (a metric key, a proposal id).
+pub struct Call<P> {
+    pub state: AppState,
+    pub caller: ApiCaller,
+    pub path: P,
+}
+
+impl<P> FromRequestParts<AppState> for Call<P>
+where
+    P: FromRequestParts<AppState, Rejection = ApiError> + Send,
+{
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let caller = ApiCaller::from_request_parts(parts, state).await?;
+        let path = P::from_request_parts(parts, state).await?;
+        Ok(Call {
+            state: state.clone(),
+            caller,
+            path,
+        })
+    }
+}
+
+impl<P> Call<P> {
+    /// The caller's account.
+    pub fn user(&self) -> &User {
+        self.caller.user()
+    }
+}
+
+/// The request's path parameters as `T`, still text to be checked; 400 in JSON when the
+/// path does not give them.
+pub async fn path_params<T>(parts: &mut Parts, state: &AppState) -> Result<T, ApiError>
+where
+    T: DeserializeOwned + Send,
+{
+    let Path(params) = Path::<T>::from_request_parts(parts, state)
+        .await
+        .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+    Ok(params)
+}
 
 /// Who the credentials belong to.
 #[derive(Serialize, utoipa::ToSchema)]

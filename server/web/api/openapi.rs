@@ -6,16 +6,21 @@
 //! be added or dropped without the description following; tests also validate real responses
 //! against it with a reference validator. The published set is described by
 //! `docs/schema/published-set.schema.json` itself, included here, so the two cannot disagree.
-//! The error answers operations share are described once, below.
+//! The error answers operations share, and the answers of the published set's renderings, are
+//! described once, below.
 
 use std::collections::BTreeMap;
 use std::sync::OnceLock;
 
 use axum::http::{HeaderValue, header};
-use axum::response::{IntoResponse, Response};
+use axum::response::IntoResponse;
 use serde_json::{Value, json};
+use utoipa::openapi::content::ContentBuilder;
+use utoipa::openapi::header::HeaderBuilder;
+use utoipa::openapi::response::{Response, ResponseBuilder};
 use utoipa::openapi::security::{ApiKey, ApiKeyValue, HttpAuthScheme, HttpBuilder, SecurityScheme};
-use utoipa::{IntoResponses, Modify, OpenApi};
+use utoipa::openapi::{Ref, RefOr, Schema};
+use utoipa::{IntoResponses, Modify, OpenApi, PartialSchema};
 
 use crate::web::error::ErrorBody;
 
@@ -176,7 +181,7 @@ fn published_set_components() -> Vec<(String, Value)> {
     security(()),
     responses((status = 200, description = "The OpenAPI 3.1 description of /api/v1", content_type = "application/json"))
 )]
-pub async fn openapi_json() -> Response {
+pub async fn openapi_json() -> axum::response::Response {
     static TEXT: OnceLock<bytes::Bytes> = OnceLock::new();
     let body = TEXT.get_or_init(|| bytes::Bytes::from(document_text()));
     (
@@ -219,4 +224,85 @@ error_answers! {
     Unavailable = 503, "The database is busy with other changes or not answering; nothing \
         was changed. Try again after Retry-After seconds",
         retry_after "Seconds to wait before trying again";
+}
+
+/// The answers of an endpoint serving a rendering of a set: 200 with the body as
+/// `description` and `content` say and the headers `published::send` sets, or 304 without a body.
+fn set_answers(
+    description: &str,
+    content_type: &str,
+    content: ContentBuilder,
+) -> BTreeMap<String, RefOr<Response>> {
+    let header = |schema: RefOr<Schema>, description: &str| {
+        HeaderBuilder::new()
+            .schema(Some(schema))
+            .description(Some(description))
+            .build()
+    };
+    let text = || String::schema();
+    let ok = ResponseBuilder::new()
+        .description(description)
+        .content(content_type, content)
+        .header(
+            "ETag",
+            header(text(), "Strong entity tag: the SHA-256 of the body"),
+        )
+        .header(
+            "Content-Digest",
+            header(text(), "RFC 9530 sha-256 of the body"),
+        )
+        .header(
+            "Cache-Control",
+            header(text(), "no-cache: revalidate with If-None-Match"),
+        )
+        .header(
+            "Cutpoints-Set-Revision",
+            header(i64::schema(), "The set revision"),
+        )
+        .header(
+            "Cutpoints-Set-Digest",
+            header(text(), "meta.digest of the set"),
+        );
+    let not_modified = ResponseBuilder::new()
+        .description("If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body");
+    BTreeMap::from([
+        ("200".to_string(), ok.into()),
+        ("304".to_string(), not_modified.into()),
+    ])
+}
+
+/// The content of a JSON rendering: the published set's own schema.
+fn json_set() -> ContentBuilder {
+    ContentBuilder::new().schema(Some(Ref::from_schema_name("PublishedSet")))
+}
+
+/// The answers of `GET /api/v1/published`.
+pub struct SetAnswers;
+
+impl IntoResponses for SetAnswers {
+    fn responses() -> BTreeMap<String, RefOr<Response>> {
+        let description = "The set in force: RFC 8785 canonical JSON, signed";
+        set_answers(description, "application/json", json_set())
+    }
+}
+
+/// The answers of `GET /api/v1/published.csv`.
+pub struct SetCsvAnswers;
+
+impl IntoResponses for SetCsvAnswers {
+    fn responses() -> BTreeMap<String, RefOr<Response>> {
+        let description = "The set as RFC 4180 CSV, one row per metric, with a header row";
+        let csv = ContentBuilder::new().schema(Some(String::schema()));
+        set_answers(description, "text/csv", csv)
+    }
+}
+
+/// The answers of `GET /api/v1/published/{key}` when the metric has a version in force.
+pub struct MetricSetAnswers;
+
+impl IntoResponses for MetricSetAnswers {
+    fn responses() -> BTreeMap<String, RefOr<Response>> {
+        let description = "The set narrowed to one metric, with its own digest and signature";
+        set_answers(description, "application/json", json_set())
+    }
 }

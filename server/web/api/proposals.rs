@@ -1,18 +1,19 @@
 //! `/api/v1/proposals` and the workflow endpoints under `/api/v1/metrics/{key}`.
 
 use axum::Json;
-use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequest, FromRequestParts, Request, State};
 use axum::http::request::Parts;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
-use super::metrics::KeyPath;
+use super::metrics::MetricCall;
 use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
     Unauthenticated, Unavailable,
 };
+use super::{Call, path_params};
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
@@ -30,12 +31,26 @@ impl FromRequestParts<AppState> for ProposalId {
     type Rejection = ApiError;
 
     async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let Path(raw) = Path::<String>::from_request_parts(parts, state)
-            .await
-            .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
+        let raw: String = path_params(parts, state).await?;
         raw.parse()
             .map(ProposalId)
             .map_err(|_| ApiError::not_found(format!("no proposal with id {raw:?}")))
+    }
+}
+
+/// A call about one proposal: the caller's credential, checked first, and the proposal named
+/// in the path.
+pub type ProposalCall = Call<ProposalId>;
+
+impl ProposalCall {
+    /// The proposal's id.
+    fn id(&self) -> i64 {
+        self.path.0
+    }
+
+    /// Answers with the proposal as the caller now sees it.
+    async fn answer(&self, status: StatusCode) -> Result<Response, ApiError> {
+        proposal_response(&self.state, &self.caller, self.id(), status).await
     }
 }
 
@@ -87,13 +102,11 @@ async fn proposal_response(
         (status = 409, description = "The metric already has an open proposal", body = ErrorBody),
         TooLarge, NotJson, Unavailable))]
 pub async fn create(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    KeyPath(key): KeyPath,
+    call: MetricCall,
     ApiJson(input): ApiJson<ContentInput>,
 ) -> Result<Response, ApiError> {
-    let id = flow::propose(&state.store, caller.user(), key.as_str(), &input).await?;
-    proposal_response(&state, &caller, id, StatusCode::CREATED).await
+    let id = flow::propose(&call.state.store, call.user(), call.key().as_str(), &input).await?;
+    proposal_response(&call.state, &call.caller, id, StatusCode::CREATED).await
 }
 
 /// `GET /api/v1/proposals/{id}`.
@@ -101,12 +114,8 @@ pub async fn create(
     params(("id" = i64, Path, description = "Proposal id")),
     responses((status = 200, description = "The proposal", body = ProposalView),
         Unauthenticated, NotFound, Unavailable))]
-pub async fn show(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
-) -> Result<Response, ApiError> {
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+pub async fn show(call: ProposalCall) -> Result<Response, ApiError> {
+    call.answer(StatusCode::OK).await
 }
 
 /// `PUT /api/v1/proposals/{id}`: a new revision (drafts and proposals sent back).
@@ -116,13 +125,11 @@ pub async fn show(
     responses((status = 200, description = "The proposal with its new revision", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn revise(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<RevisionInput>,
 ) -> Result<Response, ApiError> {
-    flow::revise(&state.store, caller.user(), id, &input).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::revise(&call.state.store, call.user(), call.id(), &input).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/submit`: asks for review.
@@ -130,13 +137,9 @@ pub async fn revise(
     params(("id" = i64, Path, description = "Proposal id")),
     responses((status = 200, description = "The proposal, in review", body = ProposalView),
         Unauthenticated, Forbidden, NotFound, ProposalMovedOn, Unavailable))]
-pub async fn submit(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
-) -> Result<Response, ApiError> {
-    flow::submit(&state.store, caller.user(), id).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+pub async fn submit(call: ProposalCall) -> Result<Response, ApiError> {
+    flow::submit(&call.state.store, call.user(), call.id()).await?;
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -155,20 +158,18 @@ pub struct CommentInput {
     responses((status = 201, description = "The proposal with the comment", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, TooLarge, NotJson, Unavailable))]
 pub async fn comment(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<CommentInput>,
 ) -> Result<Response, ApiError> {
     flow::comment(
-        &state.store,
-        caller.user(),
-        id,
+        &call.state.store,
+        call.user(),
+        call.id(),
         &input.body,
         input.cut.as_deref(),
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::CREATED).await
+    call.answer(StatusCode::CREATED).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -189,9 +190,7 @@ pub struct ReviewInput {
     responses((status = 200, description = "The proposal after the review", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn review(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<ReviewInput>,
 ) -> Result<Response, ApiError> {
     let verdict = Verdict::parse(&input.verdict).ok_or_else(|| {
@@ -204,15 +203,15 @@ pub async fn review(
         ))
     })?;
     flow::review(
-        &state.store,
-        caller.user(),
-        id,
+        &call.state.store,
+        call.user(),
+        call.id(),
         verdict,
         &input.revision_hash,
         &input.comment,
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, utoipa::ToSchema)]
@@ -233,20 +232,18 @@ pub struct SignoffInput {
     responses((status = 200, description = "The proposal after the sign-off", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Throttled, Unavailable))]
 pub async fn signoff(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<SignoffInput>,
 ) -> Result<Response, ApiError> {
     flow::sign_off(
-        &state.store,
-        caller.user(),
-        id,
+        &call.state.store,
+        call.user(),
+        call.id(),
         &input.revision_hash,
         &input.password,
     )
     .await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    call.answer(StatusCode::OK).await
 }
 
 #[derive(Deserialize, Default, utoipa::ToSchema)]
@@ -263,13 +260,11 @@ pub struct ReasonInput {
     responses((status = 200, description = "The proposal, withdrawn", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn withdraw(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     OptionalJson(input): OptionalJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::withdraw(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::withdraw(&call.state.store, call.user(), call.id(), &input.reason).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// `POST /api/v1/proposals/{id}/reject`: a reviewer or signatory rejects it, with a reason.
@@ -279,13 +274,11 @@ pub async fn withdraw(
     responses((status = 200, description = "The proposal, rejected", body = ProposalView),
         BadRequest, Unauthenticated, Forbidden, NotFound, ProposalMovedOn, TooLarge, NotJson, Unavailable))]
 pub async fn reject(
-    State(state): State<AppState>,
-    caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    call: ProposalCall,
     ApiJson(input): ApiJson<ReasonInput>,
 ) -> Result<Response, ApiError> {
-    flow::reject(&state.store, caller.user(), id, &input.reason).await?;
-    proposal_response(&state, &caller, id, StatusCode::OK).await
+    flow::reject(&call.state.store, call.user(), call.id(), &input.reason).await?;
+    call.answer(StatusCode::OK).await
 }
 
 /// A metric's versions, oldest first.
@@ -301,13 +294,9 @@ pub struct MetricHistory {
     params(("key" = String, Path, description = "Metric key")),
     responses((status = 200, description = "Every version, oldest first", body = MetricHistory),
         BadRequest, Unauthenticated, NotFound, Unavailable))]
-pub async fn history(
-    State(state): State<AppState>,
-    _caller: ApiCaller,
-    KeyPath(key): KeyPath,
-) -> Result<Json<MetricHistory>, ApiError> {
-    let metric = metrics::get(&state.store, key.as_str()).await?;
-    let versions = crate::ops::versions::history(&state.store, &metric).await?;
+pub async fn history(call: MetricCall) -> Result<Json<MetricHistory>, ApiError> {
+    let metric = metrics::get(&call.state.store, call.key().as_str()).await?;
+    let versions = crate::ops::versions::history(&call.state.store, &metric).await?;
     Ok(Json(MetricHistory {
         metric: metric.key.to_string(),
         versions,

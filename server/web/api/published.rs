@@ -11,7 +11,10 @@ use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::{Deserialize, Serialize};
 
-use super::openapi::{BadRequest, Forbidden, NotJson, Unauthenticated, Unavailable};
+use super::openapi::{
+    BadRequest, Forbidden, MetricSetAnswers, NotJson, SetAnswers, SetCsvAnswers, Unauthenticated,
+    Unavailable,
+};
 use crate::domain::{MetricKey, Timestamp};
 use crate::engine::classify;
 use crate::ops::publication::Change;
@@ -131,61 +134,64 @@ fn send(request: &HeaderMap, r: &Rendered, csv: bool) -> Response {
     (headers, body).into_response()
 }
 
-async fn rendered(
-    state: &AppState,
-    q: &TimesQuery,
-    only: Option<&str>,
-) -> Result<Arc<Rendered>, ApiError> {
-    let (as_of, known_at) = q.times()?;
-    Ok(crate::ops::publication::at(&state.publisher, &state.store, as_of, known_at, only).await?)
+/// A reader's request for a rendering of a set: the entity tags the reader holds and the
+/// times asked for. The reader is checked first.
+pub struct SetRequest {
+    state: AppState,
+    headers: HeaderMap,
+    times: TimesQuery,
+}
+
+impl FromRequestParts<AppState> for SetRequest {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        Reader::from_request_parts(parts, state).await?;
+        let ApiQuery(times) = ApiQuery::<TimesQuery>::from_request_parts(parts, state).await?;
+        Ok(SetRequest {
+            state: state.clone(),
+            headers: parts.headers.clone(),
+            times,
+        })
+    }
+}
+
+impl SetRequest {
+    /// The set in force at the times asked for, narrowed to the metric `only` when given.
+    async fn rendered(&self, only: Option<&str>) -> Result<Arc<Rendered>, ApiError> {
+        let (as_of, known_at) = self.times.times()?;
+        let (publisher, store) = (&self.state.publisher, &self.state.store);
+        Ok(crate::ops::publication::at(publisher, store, as_of, known_at, only).await?)
+    }
+
+    /// Answers with one rendering of `set`, or 304 when the reader's copy is current.
+    fn send(&self, set: &Rendered, csv: bool) -> Response {
+        send(&self.headers, set, csv)
+    }
 }
 
 /// `GET /api/v1/published[?as_of=T&known_at=R]`.
 #[utoipa::path(get, path = "/v1/published", operation_id = "getPublishedSet", tag = "published",
     params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set in force: RFC 8785 canonical JSON, signed", body = ref("#/components/schemas/PublishedSet"), headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        SetAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
-pub async fn set(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
-    let r = rendered(&state, &q, None).await?;
-    Ok(send(&headers, &r, false))
+pub async fn set(request: SetRequest) -> Result<Response, ApiError> {
+    let r = request.rendered(None).await?;
+    Ok(request.send(&r, false))
 }
 
 /// `GET /api/v1/published.csv`.
 #[utoipa::path(get, path = "/v1/published.csv", operation_id = "getPublishedSetCsv", tag = "published",
     params(TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set as RFC 4180 CSV, one row per metric, with a header row", body = String, content_type = "text/csv", headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        SetCsvAnswers,
         BadRequest, Unauthenticated, Unavailable,
     ))]
-pub async fn set_csv(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
-    let r = rendered(&state, &q, None).await?;
-    Ok(send(&headers, &r, true))
+pub async fn set_csv(request: SetRequest) -> Result<Response, ApiError> {
+    let r = request.rendered(None).await?;
+    Ok(request.send(&r, true))
 }
 
 /// `GET /api/v1/published/{key}`: the set narrowed to one metric (its own digest and
@@ -193,34 +199,21 @@ pub async fn set_csv(
 #[utoipa::path(get, path = "/v1/published/{key}", operation_id = "getPublishedMetric", tag = "published",
     params(("key" = String, Path, description = "Metric key"), TimesQuery, ("If-None-Match" = Option<String>, Header, description = "Entity tags held (RFC 9110 §13.1.2)")),
     responses(
-        (status = 200, description = "The set narrowed to one metric, with its own digest and signature", body = ref("#/components/schemas/PublishedSet"), headers(
-            ("ETag" = String, description = "Strong entity tag: the SHA-256 of the body"),
-            ("Content-Digest" = String, description = "RFC 9530 sha-256 of the body"),
-            ("Cache-Control" = String, description = "no-cache: revalidate with If-None-Match"),
-            ("Cutpoints-Set-Revision" = i64, description = "The set revision"),
-            ("Cutpoints-Set-Digest" = String, description = "meta.digest of the set")
-        )),
-        (status = 304, description = "If-None-Match matched the current entity tag (RFC 9110 §13.1.2); no body"),
+        MetricSetAnswers,
         BadRequest, Unauthenticated,
         (status = 404, description = "No such metric, or no version of it in force then", body = ErrorBody),
         Unavailable,
     ))]
-pub async fn one(
-    State(state): State<AppState>,
-    _reader: Reader,
-    headers: HeaderMap,
-    Path(key): Path<String>,
-    ApiQuery(q): ApiQuery<TimesQuery>,
-) -> Result<Response, ApiError> {
+pub async fn one(request: SetRequest, Path(key): Path<String>) -> Result<Response, ApiError> {
     let key = MetricKey::parse(&key).map_err(|e| ApiError::bad_request(e.to_string()))?;
-    crate::ops::metrics::get(&state.store, key.as_str()).await?;
-    let r = rendered(&state, &q, Some(key.as_str())).await?;
+    crate::ops::metrics::get(&request.state.store, key.as_str()).await?;
+    let r = request.rendered(Some(key.as_str())).await?;
     if r.document["set"].get(key.as_str()).is_none() {
         return Err(ApiError::not_found(format!(
             "no version of {key} is in force at the requested time"
         )));
     }
-    Ok(send(&headers, &r, false))
+    Ok(request.send(&r, false))
 }
 
 #[derive(Deserialize, Default, utoipa::IntoParams)]
