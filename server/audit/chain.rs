@@ -158,6 +158,8 @@ pub enum Break {
     Head { head_seq: i64, last_seq: i64 },
     /// A head an auditor held earlier is not in the chain (the tail was cut and re-forged).
     KnownHead { seq: i64 },
+    /// The event a check verified earlier (the checkpoint) is missing or has another hash now.
+    Checkpoint { seq: i64 },
 }
 
 impl Break {
@@ -166,7 +168,7 @@ impl Break {
         match self {
             Break::Sequence { seq, .. } | Break::Link { seq } | Break::Hash { seq } => *seq,
             Break::Head { head_seq, last_seq } => (*head_seq).max(*last_seq),
-            Break::KnownHead { seq } => *seq,
+            Break::KnownHead { seq } | Break::Checkpoint { seq } => *seq,
         }
     }
 }
@@ -194,6 +196,10 @@ impl fmt::Display for Break {
             Break::KnownHead { seq } => write!(
                 f,
                 "event seq {seq}: the head held earlier (seq {seq}) is not in the chain; the tail was cut or rewritten"
+            ),
+            Break::Checkpoint { seq } => write!(
+                f,
+                "event seq {seq}: it is not the event an earlier check verified (missing, or its hash changed); a full check names the first change"
             ),
         }
     }
@@ -227,6 +233,17 @@ impl Verifier {
             known: known_head,
             known_seen: false,
             buffer: Vec::with_capacity(1024),
+        }
+    }
+
+    /// Goes on from an event already verified (`seq` and its `hash`): the next event must be
+    /// `seq + 1` and link to `hash`. The count then includes the `seq` events before.
+    pub fn resume(seq: i64, hash: &str, known_head: Option<(i64, String)>) -> Verifier {
+        Verifier {
+            next_seq: seq + 1,
+            prev_hash: hash.to_string(),
+            count: seq,
+            ..Verifier::new(known_head)
         }
     }
 

@@ -6,7 +6,11 @@ use super::AuditCommand;
 use super::terminal::explain;
 
 pub(super) async fn audit(cmd: AuditCommand) -> anyhow::Result<ExitCode> {
-    let AuditCommand::Verify { known_head, db } = cmd;
+    let AuditCommand::Verify {
+        known_head,
+        db,
+        full: _,
+    } = cmd;
     let known = known_head
         .as_deref()
         .map(crate::audit::parse_known_head)

@@ -243,9 +243,14 @@ pub enum KeysCommand {
 
 #[derive(Subcommand, Debug)]
 pub enum AuditCommand {
-    /// Recompute the hash chain; prints `ok EVENTS HEAD_HASH`, or names the first event that
-    /// does not match and exits 1.
+    /// The full check: recompute the hash chain from the first event and replay every event
+    /// against the audited tables; prints `ok EVENTS HEAD_HASH`, or names the first problem
+    /// and exits 1. The run is recorded beside the ones auditors start from the Audit page.
     Verify {
+        /// Check everything (what this command always does; the web's quick check goes on
+        /// from the last checkpoint instead).
+        #[arg(long)]
+        full: bool,
         /// A head held from earlier (e.g. a published set's audit_head), as SEQ:HASH; the check
         /// fails if the chain no longer contains it, which reveals a cut and re-forged tail.
         #[arg(long, env = "CUTPOINTS_KNOWN_HEAD")]

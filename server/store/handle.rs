@@ -67,6 +67,8 @@ pub struct Store {
     pub(super) health: Arc<Health>,
     /// Uses of tokens and sessions waiting to be written (see [`super::usage`]).
     pub(super) usage: Arc<Usage>,
+    /// The full check this instance is running, if any (see [`super::checkpoint`]).
+    pub(super) full_check: Arc<std::sync::Mutex<Option<i64>>>,
     /// When set, the time writes are recorded at (the demo seeds an invented past; tests
     /// step through time). Shared by every clone of this handle.
     pub(super) clock: Arc<RwLock<Option<Timestamp>>>,
@@ -152,6 +154,7 @@ impl Store {
             settings,
             health: Arc::new(Health::new(options, backend == Backend::Postgres)),
             usage: Arc::default(),
+            full_check: Arc::default(),
             clock: Arc::default(),
         })
     }

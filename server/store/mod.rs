@@ -11,6 +11,7 @@
 //! (reading rows into records) and `sql` (SQL built at run time).
 
 pub mod audited;
+pub mod checkpoint;
 mod codecs;
 mod connections;
 mod db;

@@ -7,6 +7,7 @@ mod layers;
 
 mod accounts;
 mod audit_chain;
+mod audit_checkpoint;
 mod audit_replay;
 mod audit_storage;
 mod audit_views;

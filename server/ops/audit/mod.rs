@@ -4,15 +4,18 @@
 //! - [`timeline`]: why a metric's thresholds moved;
 //! - [`as_of`]: what was in force at a time;
 //! - [`exceptions`]: what deserves a look;
-//! - [`record`]: extracts of the event record and its verification.
+//! - [`record`]: extracts of the event record and its verification;
+//! - [`full_check`]: the quick check from a checkpoint, and the full check in the background.
 
 mod as_of;
 mod exceptions;
+mod full_check;
 mod record;
 mod timeline;
 
 pub use as_of::{AsOf, AsOfEntry, VersionBrief, as_of};
 pub use exceptions::{EventException, Exceptions, LapsedReview, UnsignedVersion, exceptions};
+pub use full_check::{FullCheckStarted, FullCheckView, full_check, start_full_check};
 pub use record::{
     DIFFERENCES_SHOWN, EXTRACT_LIMIT_MAX, Extract, ExtractSummary, Verification, extract, verify,
     verify_as_operator,

@@ -1,14 +1,14 @@
 //! The event record itself: extracts with what is needed to check they are complete, and
 //! the verification of the chain and of the audited tables against it.
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use super::{conn, require_auditor};
 use crate::audit::register::Difference;
 use crate::domain::User;
 use crate::ops::OpResult;
 use crate::store::Store;
-use crate::store::audited::{self, Finding};
+use crate::store::audited::Finding;
 use crate::store::events::{self, EventFilter};
 
 /// An extract of the event record with what is needed to check it is complete.
@@ -61,7 +61,7 @@ pub async fn extract(store: &Store, by: &User, filter: &EventFilter) -> OpResult
 
 /// The verification result as the API and page give it: whether the chain holds and the
 /// audited tables match it, and the first broken event if not.
-#[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
+#[derive(Clone, Debug, Default, Serialize, Deserialize, utoipa::ToSchema)]
 pub struct Verification {
     pub ok: bool,
     pub events: Option<i64>,
@@ -75,18 +75,27 @@ pub struct Verification {
     /// (at most [`DIFFERENCES_SHOWN`]; `difference_count` counts them all).
     pub differences: Vec<String>,
     pub difference_count: usize,
+    /// The events through this seq were verified by an earlier check, and this one read only
+    /// those after it (0: it read every event). The full check always reads every event.
+    #[serde(default)]
+    pub verified_before: i64,
+    /// The latest full check that finished: the whole chain and a replay of every event
+    /// against the audited tables. Until a later one passes, what it found stands here.
+    #[serde(default)]
+    pub last_full_check: Option<super::FullCheckView>,
+    /// A full check running now, with its progress.
+    #[serde(default)]
+    pub running_full_check: Option<super::FullCheckView>,
 }
 
 /// Differences listed in a verification; the rest are counted.
 pub const DIFFERENCES_SHOWN: usize = 100;
 
 impl Verification {
-    /// The full check's finding, in the words every interface uses.
+    /// A check's finding, in the words every interface uses.
     pub fn from_finding(finding: Finding) -> Verification {
         let failed = |seq: Option<i64>, problem: String, differences: &[Difference]| Verification {
             ok: false,
-            events: None,
-            head_hash: None,
             seq,
             line: problem.clone(),
             problem: Some(problem),
@@ -96,6 +105,7 @@ impl Verification {
                 .map(ToString::to_string)
                 .collect(),
             difference_count: differences.len(),
+            ..Verification::default()
         };
         match finding {
             Finding::Ok { events, head } => Verification {
@@ -103,10 +113,7 @@ impl Verification {
                 events: Some(events),
                 line: format!("ok {events} {head}"),
                 head_hash: Some(head),
-                seq: None,
-                problem: None,
-                differences: Vec::new(),
-                difference_count: 0,
+                ..Verification::default()
             },
             Finding::Chain(b) => failed(Some(b.seq()), b.to_string(), &[]),
             Finding::Unreadable(u) => failed(Some(u.seq), u.to_string(), &[]),
@@ -124,24 +131,39 @@ impl Verification {
             }
         }
     }
+
+    /// What a full check found, in place of this quick check's own finding when it failed:
+    /// a quick check cannot see the tables, so a difference stands until a full check passes.
+    pub(super) fn with_full_finding(mut self, full: &Verification) -> Verification {
+        if self.ok && !full.ok {
+            self.ok = false;
+            self.seq = full.seq;
+            self.problem = full.problem.clone();
+            self.line = full.line.clone();
+            self.differences = full.differences.clone();
+            self.difference_count = full.difference_count;
+        }
+        self
+    }
 }
 
-/// The full check: the hash chain, and a replay of every event against the audited tables.
+/// The quick check, for auditors: the chain from the checkpoint the last successful check left
+/// (every event when there is none) to the head, the events after it replayed, and the latest
+/// full check's finding. A successful check moves the checkpoint to the head.
 pub async fn verify(
     store: &Store,
     by: &User,
     known: Option<(i64, String)>,
 ) -> OpResult<Verification> {
     require_auditor(by)?;
-    verify_as_operator(store, known).await
+    super::full_check::quick(store, known).await
 }
 
-/// The full check for the operator at the command line (`cutpoints audit verify`).
+/// The full check for the operator at the command line (`cutpoints audit verify`): every
+/// event, and a replay against the audited tables, recorded as a full check.
 pub async fn verify_as_operator(
     store: &Store,
     known: Option<(i64, String)>,
 ) -> OpResult<Verification> {
-    Ok(Verification::from_finding(
-        audited::check(store, known).await?,
-    ))
+    super::full_check::run(store, "cli", known).await
 }

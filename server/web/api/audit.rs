@@ -1,17 +1,21 @@
 //! `/api/v1/audit...`: the auditor's views as JSON, and the event record as JSON and CSV.
 
 use axum::Json;
-use axum::extract::State;
-use axum::http::{HeaderMap, HeaderName, HeaderValue, header};
+use axum::extract::{FromRequestParts, State};
+use axum::http::request::Parts;
+use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
 use super::metrics::MetricCall;
 use super::openapi::{BadRequest, Forbidden, NotFound, Unauthenticated, Unavailable};
+use super::{Call, path_params};
 use crate::domain::MetricKey;
 use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::EventFilter;
-use crate::ops::audit::{self, AsOf, Exceptions, Extract, Timeline, Verification};
+use crate::ops::audit::{
+    self, AsOf, Exceptions, Extract, FullCheckStarted, FullCheckView, Timeline, Verification,
+};
 use crate::web::AppState;
 use crate::web::auth::ApiCaller;
 use crate::web::error::ApiError;
@@ -214,6 +218,49 @@ pub async fn verify(
     let known = known_head(&q.known_head)?;
     Ok(Json(
         audit::verify(&state.store, caller.user(), known).await?,
+    ))
+}
+
+/// `POST /api/v1/audit/full-checks`: starts the full check in the background.
+#[utoipa::path(post, path = "/v1/audit/full-checks", operation_id = "startFullCheck", tag = "audit",
+    responses((status = 202, description = "The full check started (or was already running); follow Location for its progress and finding", body = FullCheckStarted),
+        Unauthenticated, Forbidden, Unavailable))]
+pub async fn start_full_check(
+    State(state): State<AppState>,
+    caller: ApiCaller,
+) -> Result<Response, ApiError> {
+    let started = audit::start_full_check(&state.store, caller.user()).await?;
+    let location = format!("/api/v1/audit/full-checks/{}", started.id);
+    let mut response = (StatusCode::ACCEPTED, Json(started)).into_response();
+    response.headers_mut().insert(
+        header::LOCATION,
+        HeaderValue::from_str(&location).expect("ids are digits"),
+    );
+    Ok(response)
+}
+
+/// A full check's id from the path; anything but a whole number is no such check.
+pub struct FullCheckId(pub i64);
+
+impl FromRequestParts<AppState> for FullCheckId {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let raw: String = path_params(parts, state).await?;
+        raw.parse()
+            .map(FullCheckId)
+            .map_err(|_| ApiError::not_found(format!("no full check with id {raw:?}")))
+    }
+}
+
+/// `GET /api/v1/audit/full-checks/{id}`: a full check's progress, then its finding.
+#[utoipa::path(get, path = "/v1/audit/full-checks/{id}", operation_id = "getFullCheck", tag = "audit",
+    params(("id" = i64, Path, description = "Full check id")),
+    responses((status = 200, description = "How far the full check got, and what it found once finished", body = FullCheckView),
+        Unauthenticated, Forbidden, NotFound, Unavailable))]
+pub async fn full_check(call: Call<FullCheckId>) -> Result<Json<FullCheckView>, ApiError> {
+    Ok(Json(
+        audit::full_check(&call.state.store, call.user(), call.path.0).await?,
     ))
 }
 

@@ -2,7 +2,7 @@
 //! force at a time, exceptions, and the event record. Each has a JSON twin under /api/v1/audit.
 
 use axum::extract::{Path, State};
-use axum::response::Response;
+use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
 use super::{Common, PageData, PageQuery, page, parse_key};
@@ -42,6 +42,16 @@ pub async fn index(
         metrics: &found.metrics,
     };
     Ok(page(&Common::new(Some(&session), "Audit", "audit"), &data))
+}
+
+/// Starts the full check in the background and goes back to the overview, which shows its
+/// progress.
+pub async fn start_full_check(
+    State(state): State<AppState>,
+    PageSession(session): PageSession,
+) -> Result<Response, PageError> {
+    audit::start_full_check(&state.store, &session.user).await?;
+    Ok(Redirect::to("/audit#verify-heading").into_response())
 }
 
 /// Why a metric's thresholds moved: its versions with the discussion behind each.

@@ -14,7 +14,7 @@ use crate::engine::changes::compare;
 use crate::engine::workflow::StillNeeded;
 use crate::ops::audit::{
     AsOf, AsOfEntry, EventException, Exceptions, Extract, ExtractSummary, LapsedReview, Timeline,
-    TimelineEntry, UnsignedVersion, Verification, VersionBrief,
+    TimelineEntry, UnsignedVersion, VersionBrief,
 };
 use crate::ops::proposals::{
     Allowed, CommentView, Inbox, InboxItem, ProposalView, ReviewView, RevisionView,
@@ -254,19 +254,6 @@ pub fn token(id: i64) -> TokenInfo {
         expires_at: Some(at("2027-01-10T09:00:00Z")),
         revoked_at: None,
         last_used_at: Some(at("2026-03-01T09:00:00Z")),
-    }
-}
-
-pub fn verification(ok: bool) -> Verification {
-    Verification {
-        ok,
-        events: Some(42),
-        head_hash: Some("ab".repeat(32)),
-        seq: (!ok).then_some(17),
-        problem: (!ok).then(|| "event 17 does not match its hash".into()),
-        line: "42 events verify; head 42:abab".into(),
-        differences: Vec::new(),
-        difference_count: 0,
     }
 }
 

@@ -4,6 +4,7 @@
 //! these.
 
 mod fixtures;
+mod verification;
 
 use std::collections::BTreeSet;
 
@@ -326,7 +327,10 @@ fn proposal_samples<'a>(
 
 fn audit_samples<'a>(signed_in: &impl Fn(&str) -> Common<'a>) -> Vec<Sample> {
     let metrics = vec![fixtures::metric()];
-    let (verified, broken) = (fixtures::verification(true), fixtures::verification(false));
+    let (verified, broken) = (
+        verification::verification(true),
+        verification::verification(false),
+    );
     let timeline = fixtures::timeline();
     let as_of = fixtures::as_of();
     let fields = || AsOfFields {
