@@ -29,3 +29,10 @@ CREATE TABLE audit_full_checks (
     events_done BIGINT NOT NULL,
     result TEXT
 );
+
+-- The exceptions, found without reading the rest of the record: revisions that made earlier
+-- approvals stale, and versions approved without a sign-off. The payload is canonical JSON
+-- (no spaces, quotes inside strings escaped), so only a `revision.saved` event's key can read
+-- `"made_stale":[{`, and only when its list is not empty.
+CREATE INDEX events_made_stale ON events(seq) WHERE payload LIKE '%"made_stale":[{%';
+CREATE INDEX versions_unsigned ON versions(metric_id, number) WHERE signatory IS NULL;

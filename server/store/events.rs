@@ -143,35 +143,46 @@ pub struct EventFilter {
 }
 
 /// Events in order of seq, as the filter asks. The statement names only the conditions the
-/// filter gives, so each database can use the index that fits (`events_subject`,
-/// `events_action`, `events_actor`) instead of a plan made for every filter at once.
+/// filter gives (see [`select_sql`]), so each database can use the index that fits
+/// (`events_subject`, `events_action`, `events_actor`, `events_at`) instead of a plan made for
+/// every filter at once.
 pub async fn select(conn: &mut Db, f: &EventFilter) -> StoreResult<Vec<Entry>> {
-    let from = f.from.map(|t| t.to_string());
-    let to = f.to.map(|t| t.to_string());
+    let (sql, values) = select_sql(f);
+    let mut q = sqlx::query(sqlx::AssertSqlSafe(sql)).bind(f.after);
+    for value in values {
+        q = q.bind(value);
+    }
+    let rows = q.bind(f.limit).fetch_all(&mut *conn).await?;
+    rows.iter().map(event_from_row).collect()
+}
+
+/// The statement [`select`] runs for `f`, and the values it binds after `after` (`$1`) and
+/// before the limit (the last placeholder).
+pub fn select_sql(f: &EventFilter) -> (String, Vec<String>) {
     let mut conditions = vec!["seq > $1".to_string()];
-    let mut texts: Vec<&str> = Vec::new();
+    let mut values: Vec<String> = Vec::new();
     for (column, op, value) in [
         (
             "subject",
             "=",
-            Some(f.subject.as_str()).filter(|s| !s.is_empty()),
+            Some(f.subject.clone()).filter(|s| !s.is_empty()),
         ),
         (
             "actor",
             "=",
-            Some(f.actor.as_str()).filter(|s| !s.is_empty()),
+            Some(f.actor.clone()).filter(|s| !s.is_empty()),
         ),
         (
             "action",
             "=",
-            Some(f.action.as_str()).filter(|s| !s.is_empty()),
+            Some(f.action.clone()).filter(|s| !s.is_empty()),
         ),
-        ("at", ">=", from.as_deref()),
-        ("at", "<", to.as_deref()),
+        ("at", ">=", f.from.map(|t| t.to_string())),
+        ("at", "<", f.to.map(|t| t.to_string())),
     ] {
         if let Some(value) = value {
-            texts.push(value);
-            conditions.push(format!("{column} {op} ${}", texts.len() + 1));
+            values.push(value);
+            conditions.push(format!("{column} {op} ${}", values.len() + 1));
         }
     }
     // Only column names from the list above and numbered placeholders are spliced in; the
@@ -180,13 +191,24 @@ pub async fn select(conn: &mut Db, f: &EventFilter) -> StoreResult<Vec<Entry>> {
         "SELECT seq, at, actor, action, subject, payload, prev_hash, hash FROM events \
          WHERE {} ORDER BY seq LIMIT ${}",
         conditions.join(" AND "),
-        texts.len() + 2
+        values.len() + 2
     );
-    let mut q = sqlx::query(sqlx::AssertSqlSafe(sql)).bind(f.after);
-    for value in texts {
-        q = q.bind(value);
-    }
-    let rows = q.bind(f.limit).fetch_all(&mut *conn).await?;
+    (sql, values)
+}
+
+/// The statement of [`made_stale`], whose condition is the one of `events_made_stale`.
+pub const MADE_STALE_SQL: &str = "SELECT seq, at, actor, action, subject, payload, prev_hash, \
+    hash FROM events WHERE payload LIKE '%\"made_stale\":[{%' AND seq > $1 \
+    ORDER BY seq LIMIT $2";
+
+/// Events whose payload names approvals made stale (`revision.saved`), in order of seq, after
+/// `after`, at most `limit` (found through `events_made_stale`).
+pub async fn made_stale(conn: &mut Db, after: i64, limit: i64) -> StoreResult<Vec<Entry>> {
+    let rows = sqlx::query(MADE_STALE_SQL)
+        .bind(after)
+        .bind(limit)
+        .fetch_all(&mut *conn)
+        .await?;
     rows.iter().map(event_from_row).collect()
 }
 

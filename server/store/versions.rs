@@ -281,3 +281,83 @@ pub async fn metrics_existing_at(conn: &mut Db, at: Timestamp) -> StoreResult<Ve
             .await?,
     )
 }
+
+/// A version approved without a sign-off, with the cut points of the version before it.
+#[derive(Clone, Debug)]
+pub struct Unsigned {
+    pub metric_key: String,
+    pub number: i64,
+    pub approved_at: Timestamp,
+    pub cuts: crate::domain::CutSet,
+    pub previous: Option<crate::domain::CutSet>,
+}
+
+/// Every version approved without a sign-off, by metric key and number (found through
+/// `versions_unsigned`; no texts are read).
+pub async fn unsigned(conn: &mut Db) -> StoreResult<Vec<Unsigned>> {
+    let rows = sqlx::query(
+        "SELECT v.metric_id, m.key AS metric_key, v.number, v.approved_at, v.direction, \
+         v.cut_1, v.cut_2, v.cut_3, v.cut_4, v.shades \
+         FROM versions v JOIN metrics m ON m.id = v.metric_id \
+         WHERE v.signatory IS NULL ORDER BY m.key, v.number",
+    )
+    .fetch_all(&mut *conn)
+    .await?;
+    // The versions just before them, by (metric, number).
+    let before = sqlx::query(
+        "SELECT p.metric_id, p.number, p.direction, p.cut_1, p.cut_2, p.cut_3, p.cut_4, \
+         p.shades FROM versions p WHERE EXISTS (SELECT 1 FROM versions v \
+         WHERE v.signatory IS NULL AND v.metric_id = p.metric_id AND v.number = p.number + 1)",
+    )
+    .fetch_all(&mut *conn)
+    .await?;
+    let mut previous = std::collections::HashMap::with_capacity(before.len());
+    for row in &before {
+        let key: (i64, i64) = (row.try_get("metric_id")?, row.try_get("number")?);
+        previous.insert(key, cuts_from_row(row)?.0);
+    }
+    rows.iter()
+        .map(|row| {
+            let (metric_id, number): (i64, i64) =
+                (row.try_get("metric_id")?, row.try_get("number")?);
+            Ok(Unsigned {
+                metric_key: row.try_get("metric_key")?,
+                number,
+                approved_at: row.try_get("approved_at")?,
+                cuts: cuts_from_row(row)?.0,
+                previous: previous.remove(&(metric_id, number - 1)),
+            })
+        })
+        .collect()
+}
+
+/// A metric with a review cadence, and when its last version was approved.
+#[derive(Clone, Debug)]
+pub struct Cadence {
+    pub metric_key: String,
+    pub months: i64,
+    pub created_at: Timestamp,
+    pub last_approved: Option<Timestamp>,
+}
+
+/// Every metric with a review cadence, by key.
+pub async fn cadences(conn: &mut Db) -> StoreResult<Vec<Cadence>> {
+    let rows = sqlx::query(
+        "SELECT m.key, m.review_cadence_months, m.created_at, \
+         (SELECT v.approved_at FROM versions v WHERE v.metric_id = m.id \
+          ORDER BY v.number DESC LIMIT 1) AS last_approved \
+         FROM metrics m WHERE m.review_cadence_months IS NOT NULL ORDER BY m.key",
+    )
+    .fetch_all(&mut *conn)
+    .await?;
+    rows.iter()
+        .map(|row| {
+            Ok(Cadence {
+                metric_key: row.try_get("key")?,
+                months: row.try_get("review_cadence_months")?,
+                created_at: row.try_get("created_at")?,
+                last_approved: row.try_get("last_approved")?,
+            })
+        })
+        .collect()
+}

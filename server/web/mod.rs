@@ -68,6 +68,7 @@ pub struct Shared {
     pub config: Arc<WebConfig>,
     pub publisher: Arc<crate::publish::Publisher>,
     pub tokens: Arc<crate::ops::access::TokenCache>,
+    pub exceptions: Arc<crate::ops::audit::ExceptionsCache>,
 }
 
 impl std::ops::Deref for AppState {
@@ -85,6 +86,7 @@ impl AppState {
             config: Arc::new(config),
             publisher: Arc::new(crate::publish::Publisher::new(signer)),
             tokens: Arc::default(),
+            exceptions: Arc::default(),
         }))
     }
 }

@@ -271,6 +271,18 @@ on_both_backends! {
         assert_eq!(lapsed[0]["metric"], "old.metric");
         let due = created.as_datetime().checked_add_months(chrono::Months::new(6)).unwrap();
         assert_eq!(lapsed[0]["due"], Timestamp::from_datetime(due).to_string());
+        // Asked again, the same (kept by the chain's head); after one more failed sign-in,
+        // that one too.
+        let again = get_json(&team, &token, "/api/v1/audit/exceptions").await;
+        assert_eq!(again["refused_decisions"], x["refused_decisions"]);
+        assert_eq!(again["stale_approvals"], x["stale_approvals"]);
+        assert_eq!(again["approved_without_signoff"], x["approved_without_signoff"]);
+        let failures = again["signin_failures"].as_array().unwrap().len();
+        crate::helpers::Browser::new(&team.app).sign_in("kofi", "not the password").await;
+        let later = get_json(&team, &token, "/api/v1/audit/exceptions").await;
+        let now_listed = later["signin_failures"].as_array().unwrap();
+        assert_eq!(now_listed.len(), failures + 1);
+        assert_eq!(now_listed.last().unwrap()["details"]["username"], "kofi");
     }
 
     async fn as_of_tells_valid_time_from_transaction_time(app) {

@@ -33,6 +33,7 @@ mod pg_cluster;
 mod platform;
 mod published;
 mod published_schema;
+mod record_lookups;
 mod register_api;
 mod serve;
 mod signoff_order;

@@ -1,11 +1,13 @@
 //! What deserves an auditor's look: refusals, stale approvals, versions approved without a
 //! sign-off, sign-in failures and lapsed reviews.
 
+use std::sync::{Arc, Mutex};
+
 use chrono::Months;
 use serde::Serialize;
 use serde_json::Value;
 
-use super::{all_metrics, conn, require_auditor};
+use super::{conn, require_auditor};
 use crate::domain::Timestamp;
 use crate::domain::User;
 use crate::engine::changes::compare;
@@ -13,7 +15,7 @@ use crate::engine::workflow::signoff_reasons;
 use crate::ops::OpResult;
 use crate::store::Store;
 use crate::store::events::{self, EventFilter};
-use crate::store::versions::{self};
+use crate::store::versions;
 
 /// An event worth a look, with its payload as `details`.
 #[derive(Clone, Debug, Serialize, utoipa::ToSchema)]
@@ -66,36 +68,40 @@ pub struct Exceptions {
     pub lapsed_reviews: Vec<LapsedReview>,
 }
 
-/// Every event with one of these actions, oldest first.
-async fn events_with(store: &Store, actions: &[&str]) -> OpResult<Vec<EventException>> {
-    let mut c = conn(store).await?;
+/// How many events a page of an exceptions query holds.
+const PAGE: i64 = 10_000;
+
+impl EventException {
+    fn of(e: crate::audit::Entry) -> EventException {
+        EventException {
+            seq: e.event.seq,
+            at: e.event.at,
+            actor: e.event.actor,
+            action: e.event.action,
+            subject: e.event.subject,
+            details: e.event.payload,
+        }
+    }
+}
+
+/// Every event with one of these actions, oldest first (each action through `events_action`).
+async fn events_with(c: &mut crate::store::Db, actions: &[&str]) -> OpResult<Vec<EventException>> {
     let mut out = Vec::new();
     for action in actions {
         let mut after = 0;
         loop {
-            let page = events::select(
-                &mut c,
-                &EventFilter {
-                    after,
-                    limit: 10_000,
-                    action: action.to_string(),
-                    ..EventFilter::default()
-                },
-            )
-            .await?;
-            for e in &page {
-                out.push(EventException {
-                    seq: e.event.seq,
-                    at: e.event.at,
-                    actor: e.event.actor.clone(),
-                    action: e.event.action.clone(),
-                    subject: e.event.subject.clone(),
-                    details: e.event.payload.clone(),
-                });
-            }
-            match page.last() {
-                Some(e) if page.len() == 10_000 => after = e.event.seq,
-                _ => break,
+            let filter = EventFilter {
+                after,
+                limit: PAGE,
+                action: action.to_string(),
+                ..EventFilter::default()
+            };
+            let page = events::select(c, &filter).await?;
+            let full = page.len() as i64 == PAGE;
+            after = page.last().map_or(after, |e| e.event.seq);
+            out.extend(page.into_iter().map(EventException::of));
+            if !full {
+                break;
             }
         }
     }
@@ -103,20 +109,60 @@ async fn events_with(store: &Store, actions: &[&str]) -> OpResult<Vec<EventExcep
     Ok(out)
 }
 
-pub async fn exceptions(store: &Store, by: &User) -> OpResult<Exceptions> {
-    require_auditor(by)?;
-    let refused_decisions = events_with(store, &["review.refused", "signoff.refused"]).await?;
-    let stale_approvals = events_with(store, &["revision.saved"])
-        .await?
-        .into_iter()
-        .filter(|e| {
-            e.details["made_stale"]
-                .as_array()
-                .is_some_and(|a| !a.is_empty())
-        })
-        .collect();
+/// Revisions that made earlier approvals stale, oldest first.
+async fn stale_approvals(c: &mut crate::store::Db) -> OpResult<Vec<EventException>> {
+    let mut out = Vec::new();
+    let mut after = 0;
+    loop {
+        let page = events::made_stale(c, after, PAGE).await?;
+        let full = page.len() as i64 == PAGE;
+        after = page.last().map_or(after, |e| e.event.seq);
+        // Only that action's payload has the key; the check keeps it exact all the same.
+        out.extend(
+            page.into_iter()
+                .filter(|e| e.event.action == "revision.saved")
+                .map(EventException::of),
+        );
+        if !full {
+            return Ok(out);
+        }
+    }
+}
+
+/// What the record says up to one head: everything but the lapsed reviews, which also depend
+/// on the time of asking.
+#[derive(Debug)]
+struct Recorded {
+    refused_decisions: Vec<EventException>,
+    stale_approvals: Vec<EventException>,
+    approved_without_signoff: Vec<UnsignedVersion>,
+    signin_failures: Vec<EventException>,
+}
+
+/// The exceptions found in the record, kept by the chain's head they were read at: while
+/// nothing new is recorded, asking again costs one read of the head and of the metrics with a
+/// review cadence. One per instance (`web::AppState` holds it).
+#[derive(Debug, Default)]
+pub struct ExceptionsCache(Mutex<Option<(i64, Arc<Recorded>)>>);
+
+impl ExceptionsCache {
+    fn get(&self, head: i64) -> Option<Arc<Recorded>> {
+        let kept = self.0.lock().expect("never poisoned");
+        kept.as_ref()
+            .filter(|(at, _)| *at == head)
+            .map(|(_, r)| r.clone())
+    }
+
+    fn put(&self, head: i64, recorded: Arc<Recorded>) {
+        *self.0.lock().expect("never poisoned") = Some((head, recorded));
+    }
+}
+
+async fn recorded(c: &mut crate::store::Db) -> OpResult<Recorded> {
+    let refused_decisions = events_with(c, &["review.refused", "signoff.refused"]).await?;
+    let stale_approvals = stale_approvals(c).await?;
     let signin_failures = events_with(
-        store,
+        c,
         &[
             "signin.failed",
             "signin.throttled",
@@ -124,51 +170,72 @@ pub async fn exceptions(store: &Store, by: &User) -> OpResult<Exceptions> {
         ],
     )
     .await?;
-    let now = store.now();
-    let mut c = conn(store).await?;
-    let mut unsigned = Vec::new();
-    let mut lapsed = Vec::new();
-    for m in all_metrics(store).await? {
-        let all = versions::list(&mut c, m.id).await?;
-        for (i, v) in all.iter().enumerate() {
-            if v.signatory.is_some() {
-                continue;
-            }
-            let previous = i.checked_sub(1).map(|p| &all[p].content.cuts);
-            let reasons = signoff_reasons(previous, &compare(previous, &v.content.cuts));
-            unsigned.push(UnsignedVersion {
-                metric: m.key.to_string(),
+    let mut unsigned: Vec<UnsignedVersion> = versions::unsigned(c)
+        .await?
+        .into_iter()
+        .map(|v| {
+            let previous = v.previous.as_ref();
+            let reasons = signoff_reasons(previous, &compare(previous, &v.cuts));
+            UnsignedVersion {
+                metric: v.metric_key,
                 version: v.number,
                 approved_at: v.approved_at,
                 signoff_required: !reasons.is_empty(),
                 reasons,
-            });
-        }
-        if let Some(months) = m.review_cadence_months {
-            let last = all.last().map_or(m.created_at, |v| v.approved_at);
-            let due = last
-                .as_datetime()
-                .checked_add_months(Months::new(months as u32))
-                .map(Timestamp::from_datetime)
-                .unwrap_or(last);
-            if due < now {
-                lapsed.push(LapsedReview {
-                    metric: m.key.to_string(),
-                    review_cadence_months: months,
-                    last_reviewed: last,
-                    due,
-                });
             }
-        }
-    }
+        })
+        .collect();
     unsigned.sort_by_key(|u| !u.signoff_required);
-    let missing = unsigned.iter().filter(|u| u.signoff_required).count();
-    Ok(Exceptions {
+    Ok(Recorded {
         refused_decisions,
         stale_approvals,
         approved_without_signoff: unsigned,
-        missing_signoffs: missing,
         signin_failures,
+    })
+}
+
+pub async fn exceptions(store: &Store, cache: &ExceptionsCache, by: &User) -> OpResult<Exceptions> {
+    require_auditor(by)?;
+    let mut c = conn(store).await?;
+    // The head first: what is read after it holds at least what it names.
+    let (head, _) = events::head(&mut c).await?;
+    let recorded = match cache.get(head) {
+        Some(kept) => kept,
+        None => {
+            let fresh = Arc::new(recorded(&mut c).await?);
+            cache.put(head, fresh.clone());
+            fresh
+        }
+    };
+    let now = store.now();
+    let mut lapsed = Vec::new();
+    for m in versions::cadences(&mut c).await? {
+        let last = m.last_approved.unwrap_or(m.created_at);
+        let due = last
+            .as_datetime()
+            .checked_add_months(Months::new(m.months as u32))
+            .map(Timestamp::from_datetime)
+            .unwrap_or(last);
+        if due < now {
+            lapsed.push(LapsedReview {
+                metric: m.metric_key,
+                review_cadence_months: m.months,
+                last_reviewed: last,
+                due,
+            });
+        }
+    }
+    let r = &*recorded;
+    Ok(Exceptions {
+        refused_decisions: r.refused_decisions.clone(),
+        stale_approvals: r.stale_approvals.clone(),
+        missing_signoffs: r
+            .approved_without_signoff
+            .iter()
+            .filter(|u| u.signoff_required)
+            .count(),
+        approved_without_signoff: r.approved_without_signoff.clone(),
+        signin_failures: r.signin_failures.clone(),
         lapsed_reviews: lapsed,
     })
 }

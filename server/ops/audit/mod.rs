@@ -14,7 +14,9 @@ mod record;
 mod timeline;
 
 pub use as_of::{AsOf, AsOfEntry, VersionBrief, as_of};
-pub use exceptions::{EventException, Exceptions, LapsedReview, UnsignedVersion, exceptions};
+pub use exceptions::{
+    EventException, Exceptions, ExceptionsCache, LapsedReview, UnsignedVersion, exceptions,
+};
 pub use full_check::{FullCheckStarted, FullCheckView, full_check, start_full_check};
 pub use record::{
     DIFFERENCES_SHOWN, EXTRACT_LIMIT_MAX, Extract, ExtractSummary, Verification, extract, verify,

@@ -272,7 +272,9 @@ pub async fn exceptions(
     State(state): State<AppState>,
     caller: ApiCaller,
 ) -> Result<Json<Exceptions>, ApiError> {
-    Ok(Json(audit::exceptions(&state.store, caller.user()).await?))
+    Ok(Json(
+        audit::exceptions(&state.store, &state.exceptions, caller.user()).await?,
+    ))
 }
 
 /// `GET /api/v1/audit/metrics/{key}`: why did it move.

@@ -150,7 +150,7 @@ pub async fn exceptions(
     State(state): State<AppState>,
     PageSession(session): PageSession,
 ) -> Result<Response, PageError> {
-    let x = audit::exceptions(&state.store, &session.user).await?;
+    let x = audit::exceptions(&state.store, &state.exceptions, &session.user).await?;
     let common = Common::new(Some(&session), "Exceptions", "audit");
     Ok(page(&common, &ExceptionsPage { x: &x }))
 }
