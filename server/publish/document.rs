@@ -50,6 +50,34 @@ pub struct SetContent {
     pub known_at: Option<Timestamp>,
 }
 
+impl SetContent {
+    /// The same set for one metric alone.
+    pub fn only(&self, key: &str) -> SetContent {
+        SetContent {
+            versions: self
+                .versions
+                .iter()
+                .filter(|(k, _)| k == key)
+                .cloned()
+                .collect(),
+            metrics_without_version: self
+                .metrics_without_version
+                .iter()
+                .filter(|k| *k == key)
+                .cloned()
+                .collect(),
+            withheld: self
+                .withheld
+                .iter()
+                .filter(|w| w.metric == key)
+                .cloned()
+                .collect(),
+            audit_head: self.audit_head.clone(),
+            ..*self
+        }
+    }
+}
+
 /// The first line of a rationale, at most 200 characters.
 pub fn rationale_line(rationale: &str) -> String {
     rationale

@@ -69,6 +69,8 @@ pub struct Store {
     pub(super) usage: Arc<Usage>,
     /// The full check this instance is running, if any (see [`super::checkpoint`]).
     pub(super) full_check: Arc<std::sync::Mutex<Option<i64>>>,
+    /// Recorded writes committed through this handle (see [`Store::writes_committed`]).
+    pub(super) writes: Arc<std::sync::atomic::AtomicU64>,
     /// When set, the time writes are recorded at (the demo seeds an invented past; tests
     /// step through time). Shared by every clone of this handle.
     pub(super) clock: Arc<RwLock<Option<Timestamp>>>,
@@ -155,6 +157,7 @@ impl Store {
             health: Arc::new(Health::new(options, backend == Backend::Postgres)),
             usage: Arc::default(),
             full_check: Arc::default(),
+            writes: Arc::default(),
             clock: Arc::default(),
         })
     }

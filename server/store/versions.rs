@@ -272,6 +272,16 @@ pub async fn in_force_all(
     .await
 }
 
+/// A metric's id and creation time, by key.
+pub async fn metric_by_key(conn: &mut Db, key: &str) -> StoreResult<Option<(i64, Timestamp)>> {
+    Ok(
+        sqlx::query_as("SELECT id, created_at FROM metrics WHERE key = $1")
+            .bind(key)
+            .fetch_optional(&mut *conn)
+            .await?,
+    )
+}
+
 /// Keys of metrics added to the register by `at`.
 pub async fn metrics_existing_at(conn: &mut Db, at: Timestamp) -> StoreResult<Vec<String>> {
     Ok(

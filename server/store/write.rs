@@ -7,6 +7,12 @@ use super::events::{self, Actor};
 use super::{Db, Store, StoreResult};
 
 impl Store {
+    /// How many recorded writes this handle (and its clones) has committed: a cheap way for a
+    /// cache to know that this instance changed something since it was filled.
+    pub fn writes_committed(&self) -> u64 {
+        self.writes.load(std::sync::atomic::Ordering::Acquire)
+    }
+
     /// Starts a write: takes the write lock at once (BEGIN IMMEDIATE on SQLite, the chain-head
     /// row lock on PostgreSQL), so writers are serialised on both backends and a deciding
     /// transaction never fails half way for want of a lock.
@@ -20,6 +26,7 @@ impl Store {
             head,
             now,
             appended: 0,
+            writes: self.writes.clone(),
         })
     }
 }
@@ -31,6 +38,8 @@ pub struct WriteTx {
     head: events::ChainHead,
     now: Timestamp,
     appended: usize,
+    /// The handle's count of committed writes, moved on by [`WriteTx::commit`].
+    writes: std::sync::Arc<std::sync::atomic::AtomicU64>,
 }
 
 impl WriteTx {
@@ -70,6 +79,10 @@ impl WriteTx {
             events::store_head(&mut self.tx, &self.head).await?;
         }
         self.tx.commit().await?;
+        if self.appended > 0 {
+            self.writes
+                .fetch_add(1, std::sync::atomic::Ordering::Release);
+        }
         Ok(())
     }
 }

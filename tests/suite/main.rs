@@ -32,6 +32,7 @@ mod pages;
 mod pg_cluster;
 mod platform;
 mod published;
+mod published_reads;
 mod published_schema;
 mod record_lookups;
 mod register_api;
