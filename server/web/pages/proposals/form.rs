@@ -98,6 +98,28 @@ struct FormPage<'a> {
     revising: Option<(&'a str, i64)>,
 }
 
+impl<'a> FormPage<'a> {
+    /// The form proposing new thresholds for `metric`.
+    fn proposing(metric: &'a Metric, direction: Direction) -> FormPage<'a> {
+        FormPage {
+            metric,
+            direction,
+            action: format!("/metrics/{}/proposals/new", metric.key),
+            revising: None,
+        }
+    }
+
+    /// The form revising proposal `id`, written against the revision `base_hash`.
+    fn revising(metric: &'a Metric, direction: Direction, id: i64, base_hash: &'a str) -> Self {
+        FormPage {
+            metric,
+            direction,
+            action: format!("/proposals/{id}/edit"),
+            revising: Some((base_hash, id)),
+        }
+    }
+}
+
 /// The proposal being revised: the hash of the revision the form started from, and its id.
 #[derive(Debug, Serialize)]
 pub struct Revising<'a> {
@@ -243,12 +265,7 @@ pub async fn new_form(on: OnMetric<PageQuery<FormQuery>>) -> Result<Response, Pa
             effective_from: None,
             rationale: "",
         });
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/metrics/{}/proposals/new", metric.key),
-        revising: None,
-    };
+    let spec = FormPage::proposing(&metric, direction);
     Ok(proposal_form(
         &session,
         &spec,
@@ -268,12 +285,7 @@ pub async fn create(on: OnMetric<FormFields>) -> Result<Response, PageError> {
     let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
     let mut problems = Problems::default();
     let input = content_from_form(direction, &form, &mut problems);
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/metrics/{}/proposals/new", metric.key),
-        revising: None,
-    };
+    let spec = FormPage::proposing(&metric, direction);
     let result = if problems.is_empty() {
         flow::propose(&state.store, &session.user, metric.key.as_str(), &input).await
     } else {
@@ -311,12 +323,7 @@ pub async fn edit_form(on: OnProposal<PageQuery<FormQuery>>) -> Result<Response,
             .parse()
             .unwrap_or(Direction::HigherIsBetter),
     );
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/proposals/{id}/edit"),
-        revising: Some((&latest.hash, id)),
-    };
+    let spec = FormPage::revising(&metric, direction, id, &latest.hash);
     Ok(proposal_form(
         &session,
         &spec,
@@ -358,12 +365,7 @@ pub async fn revise(on: OnProposal<FormFields>) -> Result<Response, PageError> {
         Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
         Err(e) => {
             let (p, status) = form_problems(e, "form")?;
-            let spec = FormPage {
-                metric: &metric,
-                direction,
-                action: format!("/proposals/{id}/edit"),
-                revising: Some((form.get("base_revision_hash"), id)),
-            };
+            let spec = FormPage::revising(&metric, direction, id, form.get("base_revision_hash"));
             Ok(proposal_form(
                 &session,
                 &spec,
