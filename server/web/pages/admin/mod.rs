@@ -9,13 +9,16 @@ pub use tokens::{
 
 use std::collections::BTreeMap;
 
-use axum::extract::{FromRequest, FromRequestParts, Path, Request, State};
+use axum::extract::{FromRequest, FromRequestParts, Path, Request};
 use axum::http::StatusCode;
 use axum::http::request::Parts;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::{Common, FormFields, PageData, PageQuery, field_errors, form_problems, page, render};
+use super::{
+    Common, FormFields, PageData, PageQuery, field_errors, form_problems, page, render,
+    require_admin,
+};
 use crate::domain::access::{Session, TokenInfo};
 use crate::domain::{FieldProblem, Problems, User};
 use crate::domain::{Role, Timestamp, Username};
@@ -25,13 +28,33 @@ use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
 
-fn require_admin(session: &Session) -> Result<(), PageError> {
-    if session.user.roles.has(Role::Admin) {
-        Ok(())
-    } else {
-        Err(PageError(ApiError::forbidden(
-            "only an admin may manage people and tokens",
-        )))
+/// A request only an admin may make: the state, the session and the rest of the request as
+/// `Input`, read in that order; whether the session is an admin's is checked last.
+pub struct AsAdmin<Input> {
+    state: AppState,
+    session: Session,
+    input: Input,
+}
+
+impl<Input, M> FromRequest<AppState, M> for AsAdmin<Input>
+where
+    Input: FromRequest<AppState, M>,
+    Input::Rejection: IntoResponse,
+{
+    type Rejection = Response;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Response> {
+        let (mut parts, body) = req.into_parts();
+        let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
+        let input = Input::from_request(Request::from_parts(parts, body), state)
+            .await
+            .map_err(IntoResponse::into_response)?;
+        require_admin(&session, "manage people and tokens").map_err(IntoResponse::into_response)?;
+        Ok(AsAdmin {
+            state: state.clone(),
+            session,
+            input,
+        })
     }
 }
 
@@ -66,13 +89,9 @@ impl PageData for PeoplePage<'_> {
     const TEMPLATE: &'static str = "admin_users.html";
 }
 
-pub async fn users_list(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let people = user_ops::list(&state.store).await?;
-    let common = Common::new(Some(&session), "People", "people");
+pub async fn users_list(admin: AsAdmin<()>) -> Result<Response, PageError> {
+    let people = user_ops::list(&admin.state.store).await?;
+    let common = Common::new(Some(&admin.session), "People", "people");
     Ok(page(&common, &PeoplePage { people: &people }))
 }
 
@@ -125,22 +144,21 @@ fn new_user_form(
     )
 }
 
-pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn user_new_form(admin: AsAdmin<()>) -> Result<Response, PageError> {
     Ok(new_user_form(
-        &session,
+        &admin.session,
         None,
         &Problems::default(),
         StatusCode::OK,
     ))
 }
 
-pub async fn user_create(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn user_create(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
+    let AsAdmin {
+        state,
+        session,
+        input: form,
+    } = admin;
     let input = NewUser {
         username: form.get("username").to_string(),
         display_name: form.get("display_name").to_string(),
@@ -221,9 +239,8 @@ pub struct SavedQuery {
     saved: String,
 }
 
-/// An admin's request about one person: the state, the admin's session, the person the
-/// address names and the rest of the request as `Input` (the query, a form). Each is read in
-/// that order, and whether the session is an admin's is checked last.
+/// An admin's request about one person: the person the address names, and the rest of the
+/// request as `Input` (the query, a form).
 pub struct OnPerson<Input> {
     state: AppState,
     session: Session,
@@ -233,23 +250,19 @@ pub struct OnPerson<Input> {
 
 impl<Input, M> FromRequest<AppState, M> for OnPerson<Input>
 where
-    Input: FromRequest<AppState, M>,
-    Input::Rejection: IntoResponse,
+    (PersonPath, Input): FromRequest<AppState, M>,
+    <(PersonPath, Input) as FromRequest<AppState, M>>::Rejection: IntoResponse,
 {
     type Rejection = Response;
 
     async fn from_request(req: Request, state: &AppState) -> Result<Self, Response> {
-        let (mut parts, body) = req.into_parts();
-        let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
-        let PersonPath(username) = PersonPath::from_request_parts(&mut parts, state)
-            .await
-            .map_err(IntoResponse::into_response)?;
-        let input = Input::from_request(Request::from_parts(parts, body), state)
-            .await
-            .map_err(IntoResponse::into_response)?;
-        require_admin(&session).map_err(IntoResponse::into_response)?;
+        let AsAdmin {
+            state,
+            session,
+            input: (PersonPath(username), input),
+        } = AsAdmin::from_request(req, state).await?;
         Ok(OnPerson {
-            state: state.clone(),
+            state,
             session,
             username,
             input,

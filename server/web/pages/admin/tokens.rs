@@ -2,18 +2,16 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
+use axum::extract::Path;
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
-use super::{TokenRow, require_admin, token_rows};
+use super::{AsAdmin, TokenRow, token_rows};
 use crate::domain::access::{Scope, Session, TokenInfo};
 use crate::domain::{Problems, Timestamp, User, Username};
 use crate::ops::OpError;
 use crate::ops::users::{self as user_ops, By};
-use crate::web::AppState;
-use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
 use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 use crate::web::redirect::to_same_site;
@@ -93,11 +91,8 @@ fn tokens_page(
     )
 }
 
-pub async fn tokens_list(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn tokens_list(admin: AsAdmin<()>) -> Result<Response, PageError> {
+    let AsAdmin { state, session, .. } = admin;
     let all = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
     let people = user_ops::list(&state.store).await?;
     Ok(tokens_page(
@@ -131,12 +126,12 @@ fn expiry_field(text: &str, problems: &mut Problems) -> Option<Timestamp> {
     }
 }
 
-pub async fn token_issue(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
+    let AsAdmin {
+        state,
+        session,
+        input: form,
+    } = admin;
     let mut problems = Problems::default();
     let scope = match Scope::parse(form.get("scope")) {
         Ok(s) => Some(s),
@@ -189,12 +184,13 @@ pub async fn token_issue(
 }
 
 pub async fn token_revoke(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
+    admin: AsAdmin<(Path<String>, FormFields)>,
 ) -> Result<Response, PageError> {
-    require_admin(&session)?;
+    let AsAdmin {
+        state,
+        session,
+        input: (Path(id), form),
+    } = admin;
     let id: i64 = id
         .parse()
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
