@@ -58,6 +58,12 @@ where
     }
 }
 
+impl<Input> AsAdmin<Input> {
+    fn by(&self) -> By<'_> {
+        By::Person(&self.session.user)
+    }
+}
+
 /// The person an admin page's address names; a text that is no username names nobody (404)
 /// and never reaches the database.
 pub struct PersonPath(String);
@@ -154,24 +160,20 @@ pub async fn user_new_form(admin: AsAdmin<()>) -> Result<Response, PageError> {
 }
 
 pub async fn user_create(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
-    let AsAdmin {
-        state,
-        session,
-        input: form,
-    } = admin;
+    let form = &admin.input;
     let input = NewUser {
         username: form.get("username").to_string(),
         display_name: form.get("display_name").to_string(),
         roles: form.all("role").join(","),
         password: form.get("password").to_string(),
     };
-    match user_ops::add(&state.store, By::Person(&session.user), &input).await {
+    match user_ops::add(&admin.state.store, admin.by(), &input).await {
         Ok(u) => {
             Ok(Redirect::to(&format!("/admin/users/{}?saved=added", u.username)).into_response())
         }
         Err(e) => {
             let (p, status) = form_problems(e, "username")?;
-            Ok(new_user_form(&session, Some(&form), &p, status))
+            Ok(new_user_form(&admin.session, Some(form), &p, status))
         }
     }
 }

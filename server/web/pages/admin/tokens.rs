@@ -11,7 +11,7 @@ use super::{AsAdmin, TokenRow, token_rows};
 use crate::domain::access::{Scope, Session, TokenInfo};
 use crate::domain::{Problems, Timestamp, User, Username};
 use crate::ops::OpError;
-use crate::ops::users::{self as user_ops, By};
+use crate::ops::users as user_ops;
 use crate::web::error::{ApiError, PageError};
 use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 use crate::web::redirect::to_same_site;
@@ -92,11 +92,11 @@ fn tokens_page(
 }
 
 pub async fn tokens_list(admin: AsAdmin<()>) -> Result<Response, PageError> {
-    let AsAdmin { state, session, .. } = admin;
-    let all = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-    let people = user_ops::list(&state.store).await?;
+    let store = &admin.state.store;
+    let all = user_ops::list_tokens(store, admin.by(), None).await?;
+    let people = user_ops::list(store).await?;
     Ok(tokens_page(
-        &session,
+        &admin.session,
         &all,
         &people,
         None,
@@ -127,11 +127,7 @@ fn expiry_field(text: &str, problems: &mut Problems) -> Option<Timestamp> {
 }
 
 pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
-    let AsAdmin {
-        state,
-        session,
-        input: form,
-    } = admin;
+    let (store, form) = (&admin.state.store, &admin.input);
     let mut problems = Problems::default();
     let scope = match Scope::parse(form.get("scope")) {
         Ok(s) => Some(s),
@@ -143,8 +139,8 @@ pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageErr
     let expires_at = expiry_field(form.get("expires_in_days"), &mut problems);
     let result = match scope {
         Some(scope) if problems.is_empty() => user_ops::issue_token(
-            &state.store,
-            By::Person(&session.user),
+            store,
+            admin.by(),
             form.get("username"),
             scope,
             form.get("label"),
@@ -161,17 +157,17 @@ pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageErr
         }),
         _ => Err(OpError::Invalid(problems)),
     };
-    let people = user_ops::list(&state.store).await?;
+    let people = user_ops::list(store).await?;
     let (issued, typed, problems, status) = match result {
         Ok(issued) => (Some(issued), None, Problems::default(), StatusCode::CREATED),
         Err(e) => {
             let (p, status) = form_problems(e, "label")?;
-            (None, Some(&form), p, status)
+            (None, Some(form), p, status)
         }
     };
-    let listed = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
+    let listed = user_ops::list_tokens(store, admin.by(), None).await?;
     Ok(tokens_page(
-        &session,
+        &admin.session,
         &listed,
         &people,
         issued
@@ -186,16 +182,12 @@ pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageErr
 pub async fn token_revoke(
     admin: AsAdmin<(Path<String>, FormFields)>,
 ) -> Result<Response, PageError> {
-    let AsAdmin {
-        state,
-        session,
-        input: (Path(id), form),
-    } = admin;
+    let (Path(id), form) = &admin.input;
     let id: i64 = id
         .parse()
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
-    user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
-    state.tokens.clear();
+    user_ops::revoke_token(&admin.state.store, admin.by(), id).await?;
+    admin.state.tokens.clear();
     let back = Some(form.get("back")).filter(|b| b.starts_with("/admin/"));
     Ok(to_same_site(back.unwrap_or(""), "/admin/tokens").into_response())
 }
