@@ -285,20 +285,33 @@ pub async fn create(on: OnMetric<FormFields>) -> Result<Response, PageError> {
     let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
     let mut problems = Problems::default();
     let input = content_from_form(direction, &form, &mut problems);
-    let spec = FormPage::proposing(&metric, direction);
     let result = if problems.is_empty() {
         flow::propose(&state.store, &session.user, metric.key.as_str(), &input).await
     } else {
         Err(OpError::Invalid(problems))
     };
+    let spec = FormPage::proposing(&metric, direction);
+    answer_post(result, "proposed", &session, &spec, &form)
+}
+
+/// Answers a posted proposal form: on success the proposal it names with the message `done`;
+/// on a refusal the form again as typed, with the problems beside their fields.
+fn answer_post(
+    result: Result<i64, OpError>,
+    done: &str,
+    session: &Session,
+    spec: &FormPage<'_>,
+    form: &FormFields,
+) -> Result<Response, PageError> {
     match result {
-        Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done=proposed")).into_response()),
+        Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done={done}")).into_response()),
         Err(e) => {
             let (p, status) = form_problems(e, "form")?;
+            let direction = spec.direction;
             Ok(proposal_form(
-                &session,
-                &spec,
-                form_values(direction, Some(&form), None, &metric.unit),
+                session,
+                spec,
+                form_values(direction, Some(form), None, &spec.metric.unit),
                 &place_problems(direction, p),
                 status,
             ))
@@ -361,18 +374,6 @@ pub async fn revise(on: OnProposal<FormFields>) -> Result<Response, PageError> {
     } else {
         Err(OpError::Invalid(problems))
     };
-    match result {
-        Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
-        Err(e) => {
-            let (p, status) = form_problems(e, "form")?;
-            let spec = FormPage::revising(&metric, direction, id, form.get("base_revision_hash"));
-            Ok(proposal_form(
-                &session,
-                &spec,
-                form_values(direction, Some(&form), None, &metric.unit),
-                &place_problems(direction, p),
-                status,
-            ))
-        }
-    }
+    let spec = FormPage::revising(&metric, direction, id, form.get("base_revision_hash"));
+    answer_post(result.map(|()| id), "revised", &session, &spec, &form)
 }
