@@ -2,7 +2,7 @@
 //! tokens.
 
 use super::terminal::{explain, read_password};
-use super::{TokenCommand, UserCommand};
+use super::{DatabaseArgs, TokenCommand, UserCommand};
 use crate::domain::Timestamp;
 use crate::domain::access::Scope;
 use crate::ops::users::{self as user_ops, By, NewUser};
@@ -53,20 +53,8 @@ pub(super) async fn user(cmd: UserCommand) -> anyhow::Result<()> {
                 .map_err(explain)?;
             println!("{} now has roles {}", user.username, user.roles.to_list());
         }
-        UserCommand::Deactivate { username, db } => {
-            let store = db.open().await?;
-            user_ops::set_active(&store, By::Operator, &username, false)
-                .await
-                .map_err(explain)?;
-            println!("deactivated {username}");
-        }
-        UserCommand::Activate { username, db } => {
-            let store = db.open().await?;
-            user_ops::set_active(&store, By::Operator, &username, true)
-                .await
-                .map_err(explain)?;
-            println!("activated {username}");
-        }
+        UserCommand::Deactivate { username, db } => set_active(&username, db, false).await?,
+        UserCommand::Activate { username, db } => set_active(&username, db, true).await?,
         UserCommand::ResetPassword {
             username,
             password_stdin: _,
@@ -80,6 +68,17 @@ pub(super) async fn user(cmd: UserCommand) -> anyhow::Result<()> {
             println!("reset the password of {username}; their sessions ended");
         }
     }
+    Ok(())
+}
+
+/// `user activate` and `user deactivate`.
+async fn set_active(username: &str, db: DatabaseArgs, active: bool) -> anyhow::Result<()> {
+    let store = db.open().await?;
+    user_ops::set_active(&store, By::Operator, username, active)
+        .await
+        .map_err(explain)?;
+    let done = if active { "activated" } else { "deactivated" };
+    println!("{done} {username}");
     Ok(())
 }
 

@@ -45,6 +45,17 @@ impl Problems {
         }
     }
 
+    /// Checks `value` with `parse` when it is given, recording the error (if any) against
+    /// `field`: for a field that may be left out, as in an edit.
+    pub fn check_given<V, T, E: std::fmt::Display>(
+        &mut self,
+        field: &str,
+        value: Option<V>,
+        parse: impl FnOnce(V) -> Result<T, E>,
+    ) -> Option<T> {
+        value.and_then(|v| self.check(field, parse(v)))
+    }
+
     pub fn is_empty(&self) -> bool {
         self.0.is_empty()
     }

@@ -109,33 +109,25 @@ pub fn validate_new(input: &NewMetric) -> Result<(MetricKey, MetricFields), Prob
 pub fn validate_edit(input: &MetricEdit) -> Result<MetricPatch, Problems> {
     let mut p = Problems::default();
     let patch = MetricPatch {
-        name: input
-            .name
-            .as_deref()
-            .and_then(|v| p.check("name", metric::name(v))),
-        description: input
-            .description
-            .as_deref()
-            .and_then(|v| p.check("description", metric::description(v))),
-        unit: input
-            .unit
-            .as_deref()
-            .and_then(|v| p.check("unit", metric::unit(v))),
-        owners: input
-            .owners
-            .as_deref()
-            .and_then(|v| p.check("owners", metric::owners(v))),
-        data_source: input
-            .data_source
-            .as_deref()
-            .and_then(|v| p.check("data_source", metric::data_source(v))),
-        review_cadence_months: input
-            .review_cadence_months
-            .and_then(|v| p.check("review_cadence_months", metric::review_cadence(v))),
-        tags: input
-            .tags
-            .as_deref()
-            .and_then(|v| p.check("tags", metric::tags(v))),
+        name: p.check_given("name", input.name.as_deref(), metric::name),
+        description: p.check_given(
+            "description",
+            input.description.as_deref(),
+            metric::description,
+        ),
+        unit: p.check_given("unit", input.unit.as_deref(), metric::unit),
+        owners: p.check_given("owners", input.owners.as_deref(), metric::owners),
+        data_source: p.check_given(
+            "data_source",
+            input.data_source.as_deref(),
+            metric::data_source,
+        ),
+        review_cadence_months: p.check_given(
+            "review_cadence_months",
+            input.review_cadence_months,
+            metric::review_cadence,
+        ),
+        tags: p.check_given("tags", input.tags.as_deref(), metric::tags),
     };
     if p.is_empty() { Ok(patch) } else { Err(p) }
 }

@@ -1,14 +1,15 @@
 //! Reading result rows into records: running a query into records with a reader of one row,
 //! and the readers of values several tables share (a user, a person joined from `users`, and a
-//! cut set with its shades, which is also bound here as it is written).
+//! threshold content, whose cut set and shades are also bound here as they are written).
 
 use sqlx::any::{AnyArguments, AnyRow};
 use sqlx::query::Query;
-use sqlx::{Any, Row};
+use sqlx::{Any, FromRow, Row};
 
 use super::{Db, StoreError, StoreResult};
+use crate::domain::proposal::ThresholdContent;
 use crate::domain::thresholds::{CutSet, Direction, Shades};
-use crate::domain::{Person, Roles, User};
+use crate::domain::{Person, Roles, Timestamp, User, Username};
 
 /// The record of the row `query` finds, if any, read by `read`.
 pub(super) async fn optional<T>(
@@ -18,6 +19,12 @@ pub(super) async fn optional<T>(
 ) -> StoreResult<Option<T>> {
     let row = query.fetch_optional(&mut *conn).await?;
     row.as_ref().map(read).transpose()
+}
+
+/// A record read by its `FromRow` derive: the `read` of [`optional`] and [`all`] for records
+/// whose columns are named as their fields.
+pub(super) fn record<T: for<'r> FromRow<'r, AnyRow>>(row: &AnyRow) -> StoreResult<T> {
+    Ok(T::from_row(row)?)
 }
 
 /// The records of every row `query` finds, in order, each read by `read`.
@@ -45,23 +52,36 @@ pub(super) fn user(row: &AnyRow) -> StoreResult<User> {
     })
 }
 
-/// A person from the columns of a joined `users` row named `{prefix}_id`, `{prefix}_username`
-/// and so on (see [`person_columns`]).
-pub(super) fn person(row: &AnyRow, prefix: &str) -> StoreResult<Person> {
-    let col = |name: &str| format!("{prefix}_{name}");
-    let roles: String = row.try_get(col("roles").as_str())?;
-    let active: i64 = row.try_get(col("active").as_str())?;
-    Ok(Person {
-        id: row.try_get(col("id").as_str())?,
-        username: row.try_get(col("username").as_str())?,
-        display_name: row.try_get(col("display_name").as_str())?,
-        active: active != 0,
-        roles: Roles::parse_list(&roles).unwrap_or_default(),
-    })
+/// The columns of a `users` row joined under the prefix `a` ([`person_columns`]`!(alias, "a")`),
+/// read into a [`Person`] by a record's `#[sqlx(flatten, try_from = "PersonColumns")]` field.
+#[derive(FromRow)]
+pub struct PersonColumns {
+    #[sqlx(rename = "a_id")]
+    id: i64,
+    #[sqlx(rename = "a_username")]
+    username: Username,
+    #[sqlx(rename = "a_display_name")]
+    display_name: String,
+    #[sqlx(rename = "a_active")]
+    active: i64,
+    #[sqlx(rename = "a_roles")]
+    roles: String,
+}
+
+impl From<PersonColumns> for Person {
+    fn from(c: PersonColumns) -> Person {
+        Person {
+            id: c.id,
+            username: c.username,
+            display_name: c.display_name,
+            active: c.active != 0,
+            roles: Roles::parse_list(&c.roles).unwrap_or_default(),
+        }
+    }
 }
 
 /// The columns of a `users` row joined as `$alias`, named `$p_id`, `$p_username` and so on, as
-/// [`person`] reads them.
+/// [`PersonColumns`] reads them under the prefix `a`.
 macro_rules! person_columns {
     ($alias:literal, $p:literal) => {
         concat!(
@@ -91,7 +111,7 @@ macro_rules! person_columns {
 pub(super) use person_columns;
 
 /// Binds a cut set and its shades to the next parameters of `query`, as the columns
-/// [`cuts_from_row`] reads: `direction`, `cut_1` to `cut_4`, then `shades`.
+/// [`ContentColumns`] reads: `direction`, `cut_1` to `cut_4`, then `shades`.
 pub(super) fn bind_cuts<'q>(
     query: Query<'q, Any, AnyArguments>,
     cuts: &CutSet,
@@ -107,24 +127,40 @@ pub(super) fn bind_cuts<'q>(
         .bind(i64::from(shades.get()))
 }
 
-/// Reads the direction and four cuts of a row into a cut set (stored rows were valid).
-pub(super) fn cuts_from_row(row: &AnyRow) -> StoreResult<(CutSet, Shades)> {
-    let direction: String = row.try_get("direction")?;
-    let direction: Direction = direction
-        .parse()
-        .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
-    let cuts = CutSet::new(
-        direction,
-        [
-            row.try_get("cut_1")?,
-            row.try_get("cut_2")?,
-            row.try_get("cut_3")?,
-            row.try_get("cut_4")?,
-        ],
-    )
-    .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
-    let shades: i64 = row.try_get("shades")?;
-    let shades =
-        Shades::new(shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
-    Ok((cuts, shades))
+/// The content columns of a revision or version row: `direction`, `cut_1` to `cut_4`, `shades`,
+/// `unit`, `effective_from` and `rationale`, read into a [`ThresholdContent`] by a record's
+/// `#[sqlx(flatten, try_from = "ContentColumns")]` field (stored rows were valid).
+#[derive(FromRow)]
+pub struct ContentColumns {
+    direction: String,
+    cut_1: f64,
+    cut_2: f64,
+    cut_3: f64,
+    cut_4: f64,
+    shades: i64,
+    unit: String,
+    effective_from: Option<Timestamp>,
+    rationale: String,
+}
+
+impl TryFrom<ContentColumns> for ThresholdContent {
+    type Error = StoreError;
+
+    fn try_from(c: ContentColumns) -> StoreResult<ThresholdContent> {
+        let direction: Direction = c
+            .direction
+            .parse()
+            .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
+        let cuts = CutSet::new(direction, [c.cut_1, c.cut_2, c.cut_3, c.cut_4])
+            .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))?;
+        let shades =
+            Shades::new(c.shades).map_err(|e| StoreError::Config(format!("stored shades: {e}")))?;
+        Ok(ThresholdContent {
+            cuts,
+            shades,
+            unit: c.unit,
+            effective_from: c.effective_from,
+            rationale: c.rationale,
+        })
+    }
 }

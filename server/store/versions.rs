@@ -3,11 +3,11 @@
 //! job has to run when a scheduled version takes effect.
 
 use serde::Serialize;
-use sqlx::Row;
+use sqlx::{FromRow, Row};
 
 use super::Db;
 
-use super::rows::{self, cuts_from_row};
+use super::rows::{self, ContentColumns};
 use super::{StoreResult, WriteTx};
 use crate::domain::Timestamp;
 use crate::domain::proposal::ThresholdContent;
@@ -33,7 +33,7 @@ impl VersionStatus {
     }
 }
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct VersionRecord {
     pub id: i64,
     pub metric_id: i64,
@@ -41,16 +41,29 @@ pub struct VersionRecord {
     pub proposal_id: i64,
     pub revision_number: i64,
     pub revision_hash: String,
+    #[sqlx(flatten, try_from = "ContentColumns")]
     pub content: ThresholdContent,
     pub effective_from: Timestamp,
     pub approved_at: Timestamp,
     pub canonical_text: String,
+    #[sqlx(try_from = "ApproverList")]
     pub approvers: Vec<String>,
     pub signatory: Option<String>,
     /// The metric's name when the version was approved (the published set shows it).
     pub metric_name: String,
     /// The `version.approved` event that recorded it.
     pub approval_seq: i64,
+}
+
+/// The approvers' usernames as stored: a JSON list.
+#[derive(sqlx::Type)]
+#[sqlx(transparent)]
+pub struct ApproverList(String);
+
+impl From<ApproverList> for Vec<String> {
+    fn from(list: ApproverList) -> Vec<String> {
+        serde_json::from_str(&list.0).unwrap_or_default()
+    }
 }
 
 impl VersionRecord {
@@ -63,34 +76,6 @@ impl VersionRecord {
     pub fn is_retroactive(&self) -> bool {
         self.effective_from < self.approved_at
     }
-}
-
-fn version_from_row(row: &sqlx::any::AnyRow) -> StoreResult<VersionRecord> {
-    let (cuts, shades) = cuts_from_row(row)?;
-    let effective_from: Timestamp = row.try_get("effective_from")?;
-    let approvers: String = row.try_get("approvers")?;
-    Ok(VersionRecord {
-        id: row.try_get("id")?,
-        metric_id: row.try_get("metric_id")?,
-        number: row.try_get("number")?,
-        proposal_id: row.try_get("proposal_id")?,
-        revision_number: row.try_get("revision_number")?,
-        revision_hash: row.try_get("revision_hash")?,
-        content: ThresholdContent {
-            cuts,
-            shades,
-            unit: row.try_get("unit")?,
-            effective_from: Some(effective_from),
-            rationale: row.try_get("rationale")?,
-        },
-        effective_from,
-        approved_at: row.try_get("approved_at")?,
-        canonical_text: row.try_get("canonical_text")?,
-        approvers: serde_json::from_str(&approvers).unwrap_or_default(),
-        signatory: row.try_get("signatory")?,
-        approval_seq: row.try_get("approval_seq")?,
-        metric_name: row.try_get("metric_name")?,
-    })
 }
 
 macro_rules! select_versions {
@@ -108,7 +93,7 @@ macro_rules! select_versions {
 pub async fn list(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<VersionRecord>> {
     let query =
         sqlx::query(select_versions!("WHERE metric_id = $1 ORDER BY number")).bind(metric_id);
-    rows::all(conn, query, version_from_row).await
+    rows::all(conn, query, rows::record).await
 }
 
 /// The latest approved version (scheduled ones included): the one a new version follows in
@@ -118,7 +103,7 @@ pub async fn latest(conn: &mut Db, metric_id: i64) -> StoreResult<Option<Version
         "WHERE metric_id = $1 ORDER BY number DESC LIMIT 1"
     ))
     .bind(metric_id);
-    rows::optional(conn, query, version_from_row).await
+    rows::optional(conn, query, rows::record).await
 }
 
 /// The version in force at `as_of` as the register knew it at `known_at`: the latest one
@@ -135,7 +120,7 @@ pub async fn in_force(
     .bind(metric_id)
     .bind(as_of)
     .bind(known_at);
-    rows::optional(conn, query, version_from_row).await
+    rows::optional(conn, query, rows::record).await
 }
 
 /// Each version's status at `now`, given all of a metric's versions in order.
@@ -267,7 +252,7 @@ pub async fn in_force_all(
     .bind(as_of)
     .bind(known_at);
     rows::all(conn, query, |r| {
-        Ok((r.try_get("metric_key")?, version_from_row(r)?))
+        Ok((r.try_get("metric_key")?, rows::record(r)?))
     })
     .await
 }

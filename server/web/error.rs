@@ -78,13 +78,24 @@ impl ApiError {
     }
 
     pub fn throttled(retry_after: u64) -> ApiError {
+        ApiError::new(
+            StatusCode::TOO_MANY_REQUESTS,
+            "throttled",
+            format!("too many failed attempts; try again in {retry_after} seconds"),
+        )
+        .retry_after(retry_after)
+    }
+
+    /// 503: the database could not take the request; nothing was changed.
+    fn database_later(code: &'static str, message: &'static str, seconds: u64) -> ApiError {
+        ApiError::new(StatusCode::SERVICE_UNAVAILABLE, code, message).retry_after(seconds)
+    }
+
+    /// The same answer, asking the client to try again after `seconds`.
+    fn retry_after(self, seconds: u64) -> ApiError {
         ApiError {
-            retry_after: Some(retry_after),
-            ..ApiError::new(
-                StatusCode::TOO_MANY_REQUESTS,
-                "throttled",
-                format!("too many failed attempts; try again in {retry_after} seconds"),
-            )
+            retry_after: Some(seconds),
+            ..self
         }
     }
 
@@ -128,25 +139,19 @@ impl From<OpError> for ApiError {
             OpError::NotFound(m) => ApiError::not_found(m),
             OpError::Busy(why) => {
                 tracing::warn!(reason = %why, "database busy; answered 503");
-                ApiError {
-                    retry_after: Some(BUSY_RETRY_SECONDS),
-                    ..ApiError::new(
-                        StatusCode::SERVICE_UNAVAILABLE,
-                        "busy",
-                        "the database is busy with other changes and nothing was changed; try again shortly",
-                    )
-                }
+                ApiError::database_later(
+                    "busy",
+                    "the database is busy with other changes and nothing was changed; try again shortly",
+                    BUSY_RETRY_SECONDS,
+                )
             }
             OpError::Unavailable(why) => {
                 tracing::error!(error = %why, "database unavailable");
-                ApiError {
-                    retry_after: Some(UNAVAILABLE_RETRY_SECONDS),
-                    ..ApiError::new(
-                        StatusCode::SERVICE_UNAVAILABLE,
-                        "unavailable",
-                        "the database is not answering and nothing was changed; try again shortly",
-                    )
-                }
+                ApiError::database_later(
+                    "unavailable",
+                    "the database is not answering and nothing was changed; try again shortly",
+                    UNAVAILABLE_RETRY_SECONDS,
+                )
             }
             OpError::Internal(why) => {
                 tracing::error!(error = %why, "internal error");

@@ -1,18 +1,18 @@
 //! A proposal read whole: the proposal and its revisions, reviews, sign-offs and comments, each
 //! in the order written.
 
-use sqlx::Row;
-use sqlx::any::AnyRow;
+use sqlx::FromRow;
 
 use super::{ProposalRecord, find};
 use crate::domain::proposal::{ThresholdContent, Verdict};
 use crate::domain::{Person, Timestamp, Username};
-use crate::store::rows::{self, cuts_from_row, person, person_columns};
-use crate::store::{Db, StoreError, StoreResult};
+use crate::store::rows::{self, ContentColumns, PersonColumns, person_columns};
+use crate::store::{Db, StoreResult};
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct RevisionRecord {
     pub number: i64,
+    #[sqlx(flatten, try_from = "ContentColumns")]
     pub content: ThresholdContent,
     pub canonical_text: String,
     pub content_hash: String,
@@ -20,26 +20,29 @@ pub struct RevisionRecord {
     pub base_version: Option<i64>,
     pub diff_from_base: String,
     pub note: String,
+    #[sqlx(flatten, try_from = "PersonColumns")]
     pub author: Person,
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct ReviewRecord {
     pub id: i64,
     pub revision_number: i64,
     pub revision_hash: String,
+    #[sqlx(flatten, try_from = "PersonColumns")]
     pub reviewer: Person,
     pub verdict: Verdict,
     pub comment: String,
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct SignoffRecord {
     pub id: i64,
     pub revision_number: i64,
     pub revision_hash: String,
+    #[sqlx(flatten, try_from = "PersonColumns")]
     pub signer: Person,
     /// The display name frozen at signing.
     pub signer_name: String,
@@ -47,10 +50,11 @@ pub struct SignoffRecord {
     pub created_at: Timestamp,
 }
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct CommentRecord {
     pub id: i64,
     pub revision_number: i64,
+    #[sqlx(flatten, try_from = "PersonColumns")]
     pub author: Person,
     pub cut: Option<String>,
     pub body: String,
@@ -82,65 +86,6 @@ impl ProposalBundle {
     }
 }
 
-fn revision_from_row(row: &AnyRow) -> StoreResult<RevisionRecord> {
-    let (cuts, shades) = cuts_from_row(row)?;
-    Ok(RevisionRecord {
-        number: row.try_get("number")?,
-        content: ThresholdContent {
-            cuts,
-            shades,
-            unit: row.try_get("unit")?,
-            effective_from: row.try_get("effective_from")?,
-            rationale: row.try_get("rationale")?,
-        },
-        canonical_text: row.try_get("canonical_text")?,
-        content_hash: row.try_get("content_hash")?,
-        diff_from_previous: row.try_get("diff_from_previous")?,
-        base_version: row.try_get("base_version")?,
-        diff_from_base: row.try_get("diff_from_base")?,
-        note: row.try_get("note")?,
-        author: person(row, "a")?,
-        created_at: row.try_get("created_at")?,
-    })
-}
-
-fn review_from_row(row: &AnyRow) -> StoreResult<ReviewRecord> {
-    let verdict: String = row.try_get("verdict")?;
-    Ok(ReviewRecord {
-        id: row.try_get("id")?,
-        revision_number: row.try_get("revision_number")?,
-        revision_hash: row.try_get("revision_hash")?,
-        reviewer: person(row, "a")?,
-        verdict: Verdict::parse(&verdict)
-            .ok_or_else(|| StoreError::Config(format!("stored verdict {verdict:?}")))?,
-        comment: row.try_get("comment")?,
-        created_at: row.try_get("created_at")?,
-    })
-}
-
-fn signoff_from_row(row: &AnyRow) -> StoreResult<SignoffRecord> {
-    Ok(SignoffRecord {
-        id: row.try_get("id")?,
-        revision_number: row.try_get("revision_number")?,
-        revision_hash: row.try_get("revision_hash")?,
-        signer: person(row, "a")?,
-        signer_name: row.try_get("signer_name")?,
-        meaning: row.try_get("meaning")?,
-        created_at: row.try_get("created_at")?,
-    })
-}
-
-fn comment_from_row(row: &AnyRow) -> StoreResult<CommentRecord> {
-    Ok(CommentRecord {
-        id: row.try_get("id")?,
-        revision_number: row.try_get("revision_number")?,
-        author: person(row, "a")?,
-        cut: row.try_get("cut")?,
-        body: row.try_get("body")?,
-        created_at: row.try_get("created_at")?,
-    })
-}
-
 /// The proposal and all its records, or `None` when there is no such proposal.
 pub async fn bundle(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalBundle>> {
     let Some(proposal) = find(conn, id).await? else {
@@ -170,9 +115,9 @@ pub async fn bundle(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalBundle
     ));
     Ok(Some(ProposalBundle {
         proposal,
-        revisions: rows::all(conn, revisions.bind(id), revision_from_row).await?,
-        reviews: rows::all(conn, reviews.bind(id), review_from_row).await?,
-        signoffs: rows::all(conn, signoffs.bind(id), signoff_from_row).await?,
-        comments: rows::all(conn, comments.bind(id), comment_from_row).await?,
+        revisions: rows::all(conn, revisions.bind(id), rows::record).await?,
+        reviews: rows::all(conn, reviews.bind(id), rows::record).await?,
+        signoffs: rows::all(conn, signoffs.bind(id), rows::record).await?,
+        comments: rows::all(conn, comments.bind(id), rows::record).await?,
     }))
 }

@@ -13,20 +13,21 @@ pub use bundles::{
 };
 pub use inserts::{NewRevision, insert_comment, insert_review, insert_revision, insert_signoff};
 
-use sqlx::any::{Any, AnyRow};
-use sqlx::{Encode, Row, Type};
+use sqlx::any::Any;
+use sqlx::{Encode, FromRow, Type};
 
 use crate::domain::proposal::ProposalState;
 use crate::domain::{Person, Timestamp};
-use crate::store::rows::{self, person, person_columns};
-use crate::store::{Db, StoreError, StoreResult, WriteTx, sql};
+use crate::store::rows::{self, PersonColumns, person_columns};
+use crate::store::{Db, StoreResult, WriteTx, sql};
 
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, FromRow)]
 pub struct ProposalRecord {
     pub id: i64,
     pub metric_id: i64,
     pub metric_key: String,
     pub state: ProposalState,
+    #[sqlx(flatten, try_from = "PersonColumns")]
     pub author: Person,
     pub created_at: Timestamp,
     pub updated_at: Timestamp,
@@ -34,27 +35,6 @@ pub struct ProposalRecord {
     pub closed_at: Option<Timestamp>,
     pub close_reason: String,
     pub version_number: Option<i64>,
-}
-
-fn state_of(text: &str) -> StoreResult<ProposalState> {
-    ProposalState::parse(text).ok_or_else(|| StoreError::Config(format!("stored state {text:?}")))
-}
-
-fn proposal_from_row(row: &AnyRow) -> StoreResult<ProposalRecord> {
-    let state: String = row.try_get("state")?;
-    Ok(ProposalRecord {
-        id: row.try_get("id")?,
-        metric_id: row.try_get("metric_id")?,
-        metric_key: row.try_get("metric_key")?,
-        state: state_of(&state)?,
-        author: person(row, "a")?,
-        created_at: row.try_get("created_at")?,
-        updated_at: row.try_get("updated_at")?,
-        sent_back_revision: row.try_get("sent_back_revision")?,
-        closed_at: row.try_get("closed_at")?,
-        close_reason: row.try_get("close_reason")?,
-        version_number: row.try_get("version_number")?,
-    })
 }
 
 macro_rules! select_proposals {
@@ -71,7 +51,7 @@ macro_rules! select_proposals {
 
 pub async fn find(conn: &mut Db, id: i64) -> StoreResult<Option<ProposalRecord>> {
     let query = sqlx::query(select_proposals!("WHERE p.id = $1")).bind(id);
-    rows::optional(conn, query, proposal_from_row).await
+    rows::optional(conn, query, rows::record).await
 }
 
 /// The metric's open proposal (draft, in review or sent back), if any.
@@ -80,7 +60,7 @@ pub async fn open_for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Optio
         "WHERE p.metric_id = $1 AND p.state IN ('draft', 'in_review', 'sent_back')"
     ))
     .bind(metric_id);
-    rows::optional(conn, query, proposal_from_row).await
+    rows::optional(conn, query, rows::record).await
 }
 
 /// Every proposal of a metric, newest first.
@@ -89,7 +69,7 @@ pub async fn for_metric(conn: &mut Db, metric_id: i64) -> StoreResult<Vec<Propos
         "WHERE p.metric_id = $1 ORDER BY p.id DESC"
     ))
     .bind(metric_id);
-    rows::all(conn, query, proposal_from_row).await
+    rows::all(conn, query, rows::record).await
 }
 
 /// Proposals in the given states, least recently touched first (the inboxes filter further).
@@ -109,7 +89,7 @@ pub async fn in_states(
     for s in states {
         query = query.bind(s.as_str());
     }
-    rows::all(conn, query, proposal_from_row).await
+    rows::all(conn, query, rows::record).await
 }
 
 pub async fn insert_proposal(w: &mut WriteTx, metric_id: i64, author_id: i64) -> StoreResult<i64> {

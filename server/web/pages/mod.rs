@@ -24,7 +24,7 @@ use super::auth::PageSession;
 use super::error::{ApiError, PageError, error_page};
 pub use super::layout::{Common, PageData};
 use crate::domain::access::Session;
-use crate::domain::{MetricKey, Problems};
+use crate::domain::{MetricKey, Problems, Role};
 use crate::ops::OpError;
 
 /// Renders a page with a status; a page that fails to render becomes the error page.
@@ -98,6 +98,17 @@ where
         .await
         .map_err(IntoResponse::into_response)?;
     Ok((session, param, input))
+}
+
+/// Refuses (403) a session that is not an admin's, saying what only an admin may do.
+pub fn require_admin(session: &Session, only_an_admin_may: &str) -> Result<(), PageError> {
+    if session.user.roles.has(Role::Admin) {
+        Ok(())
+    } else {
+        Err(PageError(ApiError::forbidden(format!(
+            "only an admin may {only_an_admin_may}"
+        ))))
+    }
 }
 
 /// A metric key from a page's path; one that is not a key is a page that does not exist.

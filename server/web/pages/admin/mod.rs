@@ -9,13 +9,16 @@ pub use tokens::{
 
 use std::collections::BTreeMap;
 
-use axum::extract::{FromRequestParts, Path, State};
+use axum::extract::{FromRequest, FromRequestParts, Path, Request};
 use axum::http::StatusCode;
 use axum::http::request::Parts;
 use axum::response::{IntoResponse, Redirect, Response};
 use serde::Serialize;
 
-use super::{Common, FormFields, PageData, PageQuery, field_errors, form_problems, page, render};
+use super::{
+    Common, FormFields, PageData, PageQuery, field_errors, form_problems, page, render,
+    require_admin,
+};
 use crate::domain::access::{Session, TokenInfo};
 use crate::domain::{FieldProblem, Problems, User};
 use crate::domain::{Role, Timestamp, Username};
@@ -25,13 +28,39 @@ use crate::web::AppState;
 use crate::web::auth::PageSession;
 use crate::web::error::{ApiError, PageError};
 
-fn require_admin(session: &Session) -> Result<(), PageError> {
-    if session.user.roles.has(Role::Admin) {
-        Ok(())
-    } else {
-        Err(PageError(ApiError::forbidden(
-            "only an admin may manage people and tokens",
-        )))
+/// A request only an admin may make: the state, the session and the rest of the request as
+/// `Input`, read in that order; whether the session is an admin's is checked last.
+pub struct AsAdmin<Input> {
+    state: AppState,
+    session: Session,
+    input: Input,
+}
+
+impl<Input, M> FromRequest<AppState, M> for AsAdmin<Input>
+where
+    Input: FromRequest<AppState, M>,
+    Input::Rejection: IntoResponse,
+{
+    type Rejection = Response;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Response> {
+        let (mut parts, body) = req.into_parts();
+        let PageSession(session) = PageSession::from_request_parts(&mut parts, state).await?;
+        let input = Input::from_request(Request::from_parts(parts, body), state)
+            .await
+            .map_err(IntoResponse::into_response)?;
+        require_admin(&session, "manage people and tokens").map_err(IntoResponse::into_response)?;
+        Ok(AsAdmin {
+            state: state.clone(),
+            session,
+            input,
+        })
+    }
+}
+
+impl<Input> AsAdmin<Input> {
+    fn by(&self) -> By<'_> {
+        By::Person(&self.session.user)
     }
 }
 
@@ -66,13 +95,9 @@ impl PageData for PeoplePage<'_> {
     const TEMPLATE: &'static str = "admin_users.html";
 }
 
-pub async fn users_list(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let people = user_ops::list(&state.store).await?;
-    let common = Common::new(Some(&session), "People", "people");
+pub async fn users_list(admin: AsAdmin<()>) -> Result<Response, PageError> {
+    let people = user_ops::list(&admin.state.store).await?;
+    let common = Common::new(Some(&admin.session), "People", "people");
     Ok(page(&common, &PeoplePage { people: &people }))
 }
 
@@ -125,35 +150,30 @@ fn new_user_form(
     )
 }
 
-pub async fn user_new_form(PageSession(session): PageSession) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn user_new_form(admin: AsAdmin<()>) -> Result<Response, PageError> {
     Ok(new_user_form(
-        &session,
+        &admin.session,
         None,
         &Problems::default(),
         StatusCode::OK,
     ))
 }
 
-pub async fn user_create(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn user_create(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
+    let form = &admin.input;
     let input = NewUser {
         username: form.get("username").to_string(),
         display_name: form.get("display_name").to_string(),
         roles: form.all("role").join(","),
         password: form.get("password").to_string(),
     };
-    match user_ops::add(&state.store, By::Person(&session.user), &input).await {
+    match user_ops::add(&admin.state.store, admin.by(), &input).await {
         Ok(u) => {
             Ok(Redirect::to(&format!("/admin/users/{}?saved=added", u.username)).into_response())
         }
         Err(e) => {
             let (p, status) = form_problems(e, "username")?;
-            Ok(new_user_form(&session, Some(&form), &p, status))
+            Ok(new_user_form(&admin.session, Some(form), &p, status))
         }
     }
 }
@@ -221,17 +241,84 @@ pub struct SavedQuery {
     saved: String,
 }
 
-pub async fn user_detail(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    PersonPath(username): PersonPath,
-    PageQuery(query): PageQuery<SavedQuery>,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let person = user_ops::get(&state.store, &username).await?;
-    let person_tokens =
-        user_ops::list_tokens(&state.store, By::Person(&session.user), Some(&username)).await?;
-    let notice = match query.saved.as_str() {
+/// An admin's request about one person: the person the address names, and the rest of the
+/// request as `Input` (the query, a form).
+pub struct OnPerson<Input> {
+    state: AppState,
+    session: Session,
+    username: String,
+    input: Input,
+}
+
+impl<Input, M> FromRequest<AppState, M> for OnPerson<Input>
+where
+    (PersonPath, Input): FromRequest<AppState, M>,
+    <(PersonPath, Input) as FromRequest<AppState, M>>::Rejection: IntoResponse,
+{
+    type Rejection = Response;
+
+    async fn from_request(req: Request, state: &AppState) -> Result<Self, Response> {
+        let AsAdmin {
+            state,
+            session,
+            input: (PersonPath(username), input),
+        } = AsAdmin::from_request(req, state).await?;
+        Ok(OnPerson {
+            state,
+            session,
+            username,
+            input,
+        })
+    }
+}
+
+impl<Input> OnPerson<Input> {
+    fn by(&self) -> By<'_> {
+        By::Person(&self.session.user)
+    }
+
+    /// The person's page, with a notice or a form's problems.
+    async fn show(
+        &self,
+        notice: Option<&str>,
+        problems: &Problems,
+        status: StatusCode,
+    ) -> Result<Response, PageError> {
+        let store = &self.state.store;
+        let person = user_ops::get(store, &self.username).await?;
+        let person_tokens = user_ops::list_tokens(store, self.by(), Some(&self.username)).await?;
+        Ok(user_page(
+            &self.session,
+            &person,
+            &person_tokens,
+            notice,
+            problems,
+            status,
+        ))
+    }
+
+    /// After a change: back to the person's page saying what was `saved`, or the page again
+    /// with the form's problems.
+    async fn after<T>(
+        &self,
+        result: Result<T, OpError>,
+        saved: &str,
+    ) -> Result<Response, PageError> {
+        match result {
+            Ok(_) => {
+                let to = format!("/admin/users/{}?saved={saved}", self.username);
+                Ok(Redirect::to(&to).into_response())
+            }
+            Err(e) => {
+                let (p, status) = form_problems(e, "roles")?;
+                self.show(None, &p, status).await
+            }
+        }
+    }
+}
+
+pub async fn user_detail(on: OnPerson<PageQuery<SavedQuery>>) -> Result<Response, PageError> {
+    let notice = match on.input.0.saved.as_str() {
         "added" => Some("The person was added. They can sign in now."),
         "details" => Some("Display name and roles saved."),
         "activated" => Some("The person can sign in again."),
@@ -241,95 +328,36 @@ pub async fn user_detail(
         "password" => Some("The password was reset and their sessions ended."),
         _ => None,
     };
-    Ok(user_page(
-        &session,
-        &person,
-        &person_tokens,
-        notice,
-        &Problems::default(),
-        StatusCode::OK,
-    ))
+    on.show(notice, &Problems::default(), StatusCode::OK).await
 }
 
-async fn reshow_user(
-    state: &AppState,
-    session: &Session,
-    username: &str,
-    err: OpError,
-) -> Result<Response, PageError> {
-    let (p, status) = form_problems(err, "roles")?;
-    let person = user_ops::get(&state.store, username).await?;
-    let person_tokens =
-        user_ops::list_tokens(&state.store, By::Person(&session.user), Some(username)).await?;
-    Ok(user_page(
-        session,
-        &person,
-        &person_tokens,
-        None,
-        &p,
-        status,
-    ))
-}
-
-pub async fn user_update(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    PersonPath(username): PersonPath,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let by = By::Person(&session.user);
+pub async fn user_update(on: OnPerson<FormFields>) -> Result<Response, PageError> {
+    let (store, by, username, form) = (&on.state.store, on.by(), &on.username, &on.input);
     let result = async {
-        user_ops::set_display_name(&state.store, by, &username, form.get("display_name")).await?;
-        user_ops::set_roles(&state.store, by, &username, &form.all("role").join(",")).await
+        user_ops::set_display_name(store, by, username, form.get("display_name")).await?;
+        user_ops::set_roles(store, by, username, &form.all("role").join(",")).await
     }
     .await;
-    match result {
-        Ok(_) => {
-            Ok(Redirect::to(&format!("/admin/users/{username}?saved=details")).into_response())
-        }
-        Err(e) => reshow_user(&state, &session, &username, e).await,
-    }
+    on.after(result, "details").await
 }
 
-pub async fn user_active(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    PersonPath(username): PersonPath,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let active = form.get("active") == "1";
-    user_ops::set_active(&state.store, By::Person(&session.user), &username, active).await?;
-    state.tokens.clear();
+pub async fn user_active(on: OnPerson<FormFields>) -> Result<Response, PageError> {
+    let active = on.input.get("active") == "1";
+    user_ops::set_active(&on.state.store, on.by(), &on.username, active).await?;
+    on.state.tokens.clear();
     let saved = if active { "activated" } else { "deactivated" };
-    Ok(Redirect::to(&format!("/admin/users/{username}?saved={saved}")).into_response())
+    on.after(Ok(()), saved).await
 }
 
-pub async fn user_password(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    PersonPath(username): PersonPath,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn user_password(on: OnPerson<FormFields>) -> Result<Response, PageError> {
+    let form = &on.input;
     let result = if form.get("password") != form.get("password_again") {
-        let mut p = Problems::default();
-        p.add("password", "the two passwords differ");
-        Err(OpError::Invalid(p))
+        Err(OpError::Invalid(Problems::single(
+            "password",
+            "the two passwords differ",
+        )))
     } else {
-        user_ops::reset_password(
-            &state.store,
-            By::Person(&session.user),
-            &username,
-            form.get("password"),
-        )
-        .await
+        user_ops::reset_password(&on.state.store, on.by(), &on.username, form.get("password")).await
     };
-    match result {
-        Ok(_) => {
-            Ok(Redirect::to(&format!("/admin/users/{username}?saved=password")).into_response())
-        }
-        Err(e) => reshow_user(&state, &session, &username, e).await,
-    }
+    on.after(result, "password").await
 }

@@ -2,18 +2,16 @@
 
 use std::collections::BTreeMap;
 
-use axum::extract::{Path, State};
+use axum::extract::Path;
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 
-use super::{TokenRow, require_admin, token_rows};
+use super::{AsAdmin, TokenRow, token_rows};
 use crate::domain::access::{Scope, Session, TokenInfo};
 use crate::domain::{Problems, Timestamp, User, Username};
 use crate::ops::OpError;
-use crate::ops::users::{self as user_ops, By};
-use crate::web::AppState;
-use crate::web::auth::PageSession;
+use crate::ops::users as user_ops;
 use crate::web::error::{ApiError, PageError};
 use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
 use crate::web::redirect::to_same_site;
@@ -93,15 +91,12 @@ fn tokens_page(
     )
 }
 
-pub async fn tokens_list(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
-    let all = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
-    let people = user_ops::list(&state.store).await?;
+pub async fn tokens_list(admin: AsAdmin<()>) -> Result<Response, PageError> {
+    let store = &admin.state.store;
+    let all = user_ops::list_tokens(store, admin.by(), None).await?;
+    let people = user_ops::list(store).await?;
     Ok(tokens_page(
-        &session,
+        &admin.session,
         &all,
         &people,
         None,
@@ -131,12 +126,8 @@ fn expiry_field(text: &str, problems: &mut Problems) -> Option<Timestamp> {
     }
 }
 
-pub async fn token_issue(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    form: FormFields,
-) -> Result<Response, PageError> {
-    require_admin(&session)?;
+pub async fn token_issue(admin: AsAdmin<FormFields>) -> Result<Response, PageError> {
+    let (store, form) = (&admin.state.store, &admin.input);
     let mut problems = Problems::default();
     let scope = match Scope::parse(form.get("scope")) {
         Ok(s) => Some(s),
@@ -148,8 +139,8 @@ pub async fn token_issue(
     let expires_at = expiry_field(form.get("expires_in_days"), &mut problems);
     let result = match scope {
         Some(scope) if problems.is_empty() => user_ops::issue_token(
-            &state.store,
-            By::Person(&session.user),
+            store,
+            admin.by(),
             form.get("username"),
             scope,
             form.get("label"),
@@ -166,17 +157,17 @@ pub async fn token_issue(
         }),
         _ => Err(OpError::Invalid(problems)),
     };
-    let people = user_ops::list(&state.store).await?;
+    let people = user_ops::list(store).await?;
     let (issued, typed, problems, status) = match result {
         Ok(issued) => (Some(issued), None, Problems::default(), StatusCode::CREATED),
         Err(e) => {
             let (p, status) = form_problems(e, "label")?;
-            (None, Some(&form), p, status)
+            (None, Some(form), p, status)
         }
     };
-    let listed = user_ops::list_tokens(&state.store, By::Person(&session.user), None).await?;
+    let listed = user_ops::list_tokens(store, admin.by(), None).await?;
     Ok(tokens_page(
-        &session,
+        &admin.session,
         &listed,
         &people,
         issued
@@ -189,17 +180,14 @@ pub async fn token_issue(
 }
 
 pub async fn token_revoke(
-    State(state): State<AppState>,
-    PageSession(session): PageSession,
-    Path(id): Path<String>,
-    form: FormFields,
+    admin: AsAdmin<(Path<String>, FormFields)>,
 ) -> Result<Response, PageError> {
-    require_admin(&session)?;
+    let (Path(id), form) = &admin.input;
     let id: i64 = id
         .parse()
         .map_err(|_| PageError(ApiError::not_found(format!("no token with id {id:?}"))))?;
-    user_ops::revoke_token(&state.store, By::Person(&session.user), id).await?;
-    state.tokens.clear();
+    user_ops::revoke_token(&admin.state.store, admin.by(), id).await?;
+    admin.state.tokens.clear();
     let back = Some(form.get("back")).filter(|b| b.starts_with("/admin/"));
     Ok(to_same_site(back.unwrap_or(""), "/admin/tokens").into_response())
 }

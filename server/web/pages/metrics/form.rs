@@ -16,8 +16,8 @@ use crate::ops::metrics::{MetricEdit, NewMetric, edit_permission};
 use crate::ops::{self, OpError};
 use crate::web::AppState;
 use crate::web::auth::PageSession;
-use crate::web::error::{ApiError, PageError};
-use crate::web::pages::{Common, FormFields, PageData, field_errors, form_problems, render};
+use crate::web::error::PageError;
+use crate::web::pages::{self, Common, FormFields, PageData, field_errors, form_problems, render};
 
 /// The metric form's fields as text.
 #[derive(Debug, Serialize)]
@@ -153,14 +153,9 @@ fn new_form_spec() -> FormSpec<'static> {
     }
 }
 
+/// Only an admin adds metrics to the register.
 fn require_admin(session: &Session) -> Result<(), PageError> {
-    if session.user.roles.has(Role::Admin) {
-        Ok(())
-    } else {
-        Err(PageError(ApiError::forbidden(
-            "only an admin may add metrics to the register",
-        )))
-    }
+    pages::require_admin(session, "add metrics to the register")
 }
 
 pub async fn new_form(PageSession(session): PageSession) -> Result<Response, PageError> {

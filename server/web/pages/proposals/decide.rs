@@ -30,16 +30,11 @@ async fn step(
                 return Err(PageError(api));
             }
             let (read, evidence) = load_with_evidence(state, &session.user, id, ("", "")).await?;
-            let flow::ProposalRead {
-                view,
-                previous,
-                metric,
-            } = read;
             let mut response = proposal_page(
                 session,
-                &metric,
-                &view,
-                previous.as_ref(),
+                &read.metric,
+                &read.view,
+                read.previous.as_ref(),
                 &evidence,
                 None,
                 Some(&api.message),

@@ -98,6 +98,28 @@ struct FormPage<'a> {
     revising: Option<(&'a str, i64)>,
 }
 
+impl<'a> FormPage<'a> {
+    /// The form proposing new thresholds for `metric`.
+    fn proposing(metric: &'a Metric, direction: Direction) -> FormPage<'a> {
+        FormPage {
+            metric,
+            direction,
+            action: format!("/metrics/{}/proposals/new", metric.key),
+            revising: None,
+        }
+    }
+
+    /// The form revising proposal `id`, written against the revision `base_hash`.
+    fn revising(metric: &'a Metric, direction: Direction, id: i64, base_hash: &'a str) -> Self {
+        FormPage {
+            metric,
+            direction,
+            action: format!("/proposals/{id}/edit"),
+            revising: Some((base_hash, id)),
+        }
+    }
+}
+
 /// The proposal being revised: the hash of the revision the form started from, and its id.
 #[derive(Debug, Serialize)]
 pub struct Revising<'a> {
@@ -243,12 +265,7 @@ pub async fn new_form(on: OnMetric<PageQuery<FormQuery>>) -> Result<Response, Pa
             effective_from: None,
             rationale: "",
         });
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/metrics/{}/proposals/new", metric.key),
-        revising: None,
-    };
+    let spec = FormPage::proposing(&metric, direction);
     Ok(proposal_form(
         &session,
         &spec,
@@ -268,25 +285,33 @@ pub async fn create(on: OnMetric<FormFields>) -> Result<Response, PageError> {
     let direction = direction_param(form.get("direction"), Direction::HigherIsBetter);
     let mut problems = Problems::default();
     let input = content_from_form(direction, &form, &mut problems);
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/metrics/{}/proposals/new", metric.key),
-        revising: None,
-    };
     let result = if problems.is_empty() {
         flow::propose(&state.store, &session.user, metric.key.as_str(), &input).await
     } else {
         Err(OpError::Invalid(problems))
     };
+    let spec = FormPage::proposing(&metric, direction);
+    answer_post(result, "proposed", &session, &spec, &form)
+}
+
+/// Answers a posted proposal form: on success the proposal it names with the message `done`;
+/// on a refusal the form again as typed, with the problems beside their fields.
+fn answer_post(
+    result: Result<i64, OpError>,
+    done: &str,
+    session: &Session,
+    spec: &FormPage<'_>,
+    form: &FormFields,
+) -> Result<Response, PageError> {
     match result {
-        Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done=proposed")).into_response()),
+        Ok(id) => Ok(Redirect::to(&format!("/proposals/{id}?done={done}")).into_response()),
         Err(e) => {
             let (p, status) = form_problems(e, "form")?;
+            let direction = spec.direction;
             Ok(proposal_form(
-                &session,
-                &spec,
-                form_values(direction, Some(&form), None, &metric.unit),
+                session,
+                spec,
+                form_values(direction, Some(form), None, &spec.metric.unit),
                 &place_problems(direction, p),
                 status,
             ))
@@ -311,12 +336,7 @@ pub async fn edit_form(on: OnProposal<PageQuery<FormQuery>>) -> Result<Response,
             .parse()
             .unwrap_or(Direction::HigherIsBetter),
     );
-    let spec = FormPage {
-        metric: &metric,
-        direction,
-        action: format!("/proposals/{id}/edit"),
-        revising: Some((&latest.hash, id)),
-    };
+    let spec = FormPage::revising(&metric, direction, id, &latest.hash);
     Ok(proposal_form(
         &session,
         &spec,
@@ -354,23 +374,6 @@ pub async fn revise(on: OnProposal<FormFields>) -> Result<Response, PageError> {
     } else {
         Err(OpError::Invalid(problems))
     };
-    match result {
-        Ok(()) => Ok(Redirect::to(&format!("/proposals/{id}?done=revised")).into_response()),
-        Err(e) => {
-            let (p, status) = form_problems(e, "form")?;
-            let spec = FormPage {
-                metric: &metric,
-                direction,
-                action: format!("/proposals/{id}/edit"),
-                revising: Some((form.get("base_revision_hash"), id)),
-            };
-            Ok(proposal_form(
-                &session,
-                &spec,
-                form_values(direction, Some(&form), None, &metric.unit),
-                &place_problems(direction, p),
-                status,
-            ))
-        }
-    }
+    let spec = FormPage::revising(&metric, direction, id, form.get("base_revision_hash"));
+    answer_post(result.map(|()| id), "revised", &session, &spec, &form)
 }

@@ -181,27 +181,24 @@ pub(super) fn proposal_page(
     )
 }
 
+impl OnProposal<PageQuery<DoneQuery>> {
+    /// The proposal as the reader may see it, with its evidence over the window asked for.
+    async fn read_with_evidence(&self) -> Result<(flow::ProposalRead, EvidenceSection), PageError> {
+        let query = &self.input.0;
+        let window = (query.from.as_str(), query.to.as_str());
+        load_with_evidence(&self.state, &self.session.user, self.id, window).await
+    }
+}
+
 pub async fn show(on: OnProposal<PageQuery<DoneQuery>>) -> Result<Response, PageError> {
-    let OnProposal {
-        state,
-        session,
-        id,
-        input: PageQuery(query),
-    } = on;
-    let (read, evidence) =
-        load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
-    let flow::ProposalRead {
-        view,
-        previous,
-        metric,
-    } = read;
+    let (read, evidence) = on.read_with_evidence().await?;
     Ok(proposal_page(
-        &session,
-        &metric,
-        &view,
-        previous.as_ref(),
+        &on.session,
+        &read.metric,
+        &read.view,
+        read.previous.as_ref(),
         &evidence,
-        done_message(&query.done),
+        done_message(&on.input.0.done),
         None,
         StatusCode::OK,
     ))
@@ -223,14 +220,7 @@ impl PageData for SignoffPage<'_> {
 /// `GET /proposals/{id}/signoff`: what changes, the evidence and the signature form on one
 /// page for the signatory.
 pub async fn signoff_page(on: OnProposal<PageQuery<DoneQuery>>) -> Result<Response, PageError> {
-    let OnProposal {
-        state,
-        session,
-        id,
-        input: PageQuery(query),
-    } = on;
-    let (flow::ProposalRead { view, metric, .. }, evidence) =
-        load_with_evidence(&state, &session.user, id, (&query.from, &query.to)).await?;
+    let (flow::ProposalRead { view, metric, .. }, evidence) = on.read_with_evidence().await?;
     let data = SignoffPage {
         p: &view,
         shown: MetricEvidence {
@@ -242,7 +232,7 @@ pub async fn signoff_page(on: OnProposal<PageQuery<DoneQuery>>) -> Result<Respon
     let title = format!("Sign off proposal {} for {}", view.id, metric.name);
     Ok(render(
         StatusCode::OK,
-        &Common::new(Some(&session), title, "register"),
+        &Common::new(Some(&on.session), title, "register"),
         &data,
     ))
 }
