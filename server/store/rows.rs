@@ -127,6 +127,29 @@ pub(super) fn bind_cuts<'q>(
         .bind(i64::from(shades.get()))
 }
 
+/// The cut columns alone (`direction`, `cut_1` to `cut_4`), for reads that need no texts.
+#[derive(FromRow)]
+pub(super) struct CutColumns {
+    direction: String,
+    cut_1: f64,
+    cut_2: f64,
+    cut_3: f64,
+    cut_4: f64,
+}
+
+impl CutColumns {
+    /// Reads them from `row` (stored rows were valid).
+    pub(super) fn read(row: &sqlx::any::AnyRow) -> StoreResult<CutSet> {
+        let c = CutColumns::from_row(row)?;
+        let direction: Direction = c
+            .direction
+            .parse()
+            .map_err(|e| StoreError::Config(format!("stored direction: {e}")))?;
+        CutSet::new(direction, [c.cut_1, c.cut_2, c.cut_3, c.cut_4])
+            .map_err(|e| StoreError::Config(format!("stored cut set: {e}")))
+    }
+}
+
 /// The content columns of a revision or version row: `direction`, `cut_1` to `cut_4`, `shades`,
 /// `unit`, `effective_from` and `rationale`, read into a [`ThresholdContent`] by a record's
 /// `#[sqlx(flatten, try_from = "ContentColumns")]` field (stored rows were valid).

@@ -7,7 +7,7 @@ use sqlx::{FromRow, Row};
 
 use super::Db;
 
-use super::rows::{self, ContentColumns};
+use super::rows::{self, ContentColumns, CutColumns};
 use super::{StoreResult, WriteTx};
 use crate::domain::Timestamp;
 use crate::domain::proposal::ThresholdContent;
@@ -309,7 +309,7 @@ pub async fn unsigned(conn: &mut Db) -> StoreResult<Vec<Unsigned>> {
     let mut previous = std::collections::HashMap::with_capacity(before.len());
     for row in &before {
         let key: (i64, i64) = (row.try_get("metric_id")?, row.try_get("number")?);
-        previous.insert(key, cuts_from_row(row)?.0);
+        previous.insert(key, CutColumns::read(row)?);
     }
     rows.iter()
         .map(|row| {
@@ -319,7 +319,7 @@ pub async fn unsigned(conn: &mut Db) -> StoreResult<Vec<Unsigned>> {
                 metric_key: row.try_get("metric_key")?,
                 number,
                 approved_at: row.try_get("approved_at")?,
-                cuts: cuts_from_row(row)?.0,
+                cuts: CutColumns::read(row)?,
                 previous: previous.remove(&(metric_id, number - 1)),
             })
         })
