@@ -12,16 +12,15 @@ use document::SetContent;
 pub use publisher::{FRESHNESS, Publisher, RENDER_BUDGET};
 pub use signing::Signer;
 
-/// Reads what a set holds at `as_of` as recorded by `known_at`, optionally for one metric.
+/// Reads what the whole set holds at `as_of` as recorded by `known_at`.
 pub async fn content(
     store: &Store,
     as_of: Timestamp,
     known_at: Timestamp,
     requested: (Option<Timestamp>, Option<Timestamp>),
-    only: Option<&str>,
 ) -> StoreResult<SetContent> {
     let mut conn = store.read().await?;
-    let (set_revision, in_force_since) = versions::set_state(&mut conn, as_of, known_at).await?;
+    let state = versions::set_state(&mut conn, as_of, known_at).await?;
     let mut in_force = versions::in_force_all(&mut conn, as_of, known_at).await?;
     // Byte order of keys, whatever the database's collation.
     in_force.sort_by(|a, b| a.0.cmp(&b.0));
@@ -35,7 +34,7 @@ pub async fn content(
         .collect();
     // The set is a function of its revision: metrics without a version are those that
     // existed when the revision took effect.
-    let mut without = match in_force_since {
+    let mut without: Vec<String> = match state.1 {
         Some(since) => versions::metrics_existing_at(&mut conn, since)
             .await?
             .into_iter()
@@ -43,24 +42,31 @@ pub async fn content(
             .collect(),
         None => Vec::new(),
     };
+    without.sort();
+    assemble(&mut conn, state, in_force, withheld, without, requested).await
+}
+
+/// A set's content from its parts, with the chain's head as it was when its revision took
+/// effect.
+async fn assemble(
+    conn: &mut crate::store::Db,
+    (set_revision, in_force_since): (i64, Option<Timestamp>),
+    versions: Vec<(String, versions::VersionRecord)>,
+    withheld: Vec<withhold::Withheld>,
+    metrics_without_version: Vec<String>,
+    requested: (Option<Timestamp>, Option<Timestamp>),
+) -> StoreResult<SetContent> {
     let audit_head = match in_force_since {
-        Some(since) => events::head_at(&mut conn, since).await?,
+        Some(since) => events::head_at(conn, since).await?,
         None => crate::audit::GENESIS_HASH.to_string(),
     };
-    without.sort();
-    let mut withheld = withheld;
-    if let Some(key) = only {
-        in_force.retain(|(k, _)| k == key);
-        without.retain(|k| k == key);
-        withheld.retain(|w| w.metric == key);
-    }
     Ok(SetContent {
         set_revision,
         in_force_since,
         audit_head,
-        metrics_without_version: without,
+        metrics_without_version,
         withheld,
-        versions: in_force,
+        versions,
         as_of: requested.0,
         known_at: requested.1,
     })
@@ -90,8 +96,8 @@ async fn withhold_unapproved(
     Ok(withheld)
 }
 
-/// What one metric's set holds at `as_of` as recorded by `known_at`: the same as
-/// [`content`] with `only`, but read from that metric's rows (and the set's state) alone.
+/// What one metric's set holds at `as_of` as recorded by `known_at`: the whole set's entry
+/// for it, read from that metric's rows (and the set's state) alone.
 pub async fn content_of_one(
     store: &Store,
     as_of: Timestamp,
@@ -100,7 +106,7 @@ pub async fn content_of_one(
     key: &str,
 ) -> StoreResult<SetContent> {
     let mut conn = store.read().await?;
-    let (set_revision, in_force_since) = versions::set_state(&mut conn, as_of, known_at).await?;
+    let state = versions::set_state(&mut conn, as_of, known_at).await?;
     let metric = versions::metric_by_key(&mut conn, key).await?;
     let mut in_force = Vec::new();
     if let Some((id, _)) = metric
@@ -109,7 +115,7 @@ pub async fn content_of_one(
         in_force.push((key.to_string(), v));
     }
     let withheld = withhold_unapproved(&mut conn, &mut in_force).await?;
-    let existed = match (metric, in_force_since) {
+    let existed = match (metric, state.1) {
         (Some((_, created_at)), Some(since)) => created_at <= since,
         _ => false,
     };
@@ -118,18 +124,5 @@ pub async fn content_of_one(
     } else {
         Vec::new()
     };
-    let audit_head = match in_force_since {
-        Some(since) => events::head_at(&mut conn, since).await?,
-        None => crate::audit::GENESIS_HASH.to_string(),
-    };
-    Ok(SetContent {
-        set_revision,
-        in_force_since,
-        audit_head,
-        metrics_without_version: without,
-        withheld,
-        versions: in_force,
-        as_of: requested.0,
-        known_at: requested.1,
-    })
+    assemble(&mut conn, state, in_force, withheld, without, requested).await
 }

@@ -100,9 +100,11 @@ pub struct Publisher {
 
 impl std::fmt::Debug for Publisher {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        // The caches are left out: they hold whole sets.
         f.debug_struct("Publisher")
             .field("signer", &self.signer)
-            .finish()
+            .field("budget", &self.budget)
+            .finish_non_exhaustive()
     }
 }
 
@@ -204,7 +206,7 @@ impl Publisher {
                 match reuse {
                     Some((r, c)) => (r, c, valid_until),
                     None => {
-                        let c = Arc::new(content(store, now, now, (None, None), None).await?);
+                        let c = Arc::new(content(store, now, now, (None, None)).await?);
                         (render(c.clone(), self.signer.clone()).await, c, valid_until)
                     }
                 }
@@ -266,7 +268,7 @@ impl Publisher {
         let (as_of_t, known_t) = (as_of.unwrap_or(now), known_at.unwrap_or(now));
         let c = match only {
             Some(key) => content_of_one(store, as_of_t, known_t, (as_of, known_at), key).await?,
-            None => content(store, as_of_t, known_t, (as_of, known_at), None).await?,
+            None => content(store, as_of_t, known_t, (as_of, known_at)).await?,
         };
         let rendered = render(Arc::new(c), self.signer.clone()).await;
         // A set that depends on the time of asking (a time left out) is not kept.

@@ -72,33 +72,33 @@ pub async fn reset(store: &Store) -> StoreResult<()> {
 }
 
 /// A full check, running or finished.
-#[derive(Clone, Debug, PartialEq, Eq)]
+#[derive(
+    Clone,
+    Debug,
+    PartialEq,
+    Eq,
+    serde::Serialize,
+    serde::Deserialize,
+    sqlx::FromRow,
+    utoipa::ToSchema,
+)]
 pub struct FullCheck {
     pub id: i64,
+    /// Who asked for it (`cli` for the command line).
     pub requested_by: String,
     pub started_at: Timestamp,
     pub finished_at: Option<Timestamp>,
+    /// The events in the record when it started, and how many it has read.
     pub events_total: i64,
     pub events_done: i64,
     /// What it found, as the JSON the caller stored; `None` while it runs (or when the
     /// instance running it stopped before the end).
+    #[serde(skip)]
     pub result: Option<String>,
 }
 
 const FULL_CHECK_COLUMNS: &str =
     "id, requested_by, started_at, finished_at, events_total, events_done, result";
-
-fn full_check(row: &sqlx::any::AnyRow) -> StoreResult<FullCheck> {
-    Ok(FullCheck {
-        id: row.try_get("id")?,
-        requested_by: row.try_get("requested_by")?,
-        started_at: row.try_get("started_at")?,
-        finished_at: row.try_get("finished_at")?,
-        events_total: row.try_get("events_total")?,
-        events_done: row.try_get("events_done")?,
-        result: row.try_get("result")?,
-    })
-}
 
 /// Records that a full check starts; its id.
 pub async fn start_full(
@@ -154,11 +154,10 @@ pub async fn finish_full(
 
 pub async fn full_check_by_id(conn: &mut Db, id: i64) -> StoreResult<Option<FullCheck>> {
     let sql = format!("SELECT {FULL_CHECK_COLUMNS} FROM audit_full_checks WHERE id = $1");
-    let row = sqlx::query(sqlx::AssertSqlSafe(sql))
+    Ok(sqlx::query_as(sqlx::AssertSqlSafe(sql))
         .bind(id)
         .fetch_optional(&mut *conn)
-        .await?;
-    row.as_ref().map(full_check).transpose()
+        .await?)
 }
 
 /// The latest full check that finished, and the latest one still running (if it started
@@ -168,23 +167,17 @@ pub async fn latest_full(conn: &mut Db) -> StoreResult<(Option<FullCheck>, Optio
         "SELECT {FULL_CHECK_COLUMNS} FROM audit_full_checks WHERE result IS NOT NULL \
          ORDER BY id DESC LIMIT 1"
     );
-    let finished = sqlx::query(sqlx::AssertSqlSafe(finished))
+    let finished: Option<FullCheck> = sqlx::query_as(sqlx::AssertSqlSafe(finished))
         .fetch_optional(&mut *conn)
-        .await?
-        .as_ref()
-        .map(full_check)
-        .transpose()?;
+        .await?;
     let running = format!(
         "SELECT {FULL_CHECK_COLUMNS} FROM audit_full_checks WHERE result IS NULL AND id > $1 \
          ORDER BY id DESC LIMIT 1"
     );
-    let running = sqlx::query(sqlx::AssertSqlSafe(running))
+    let running = sqlx::query_as(sqlx::AssertSqlSafe(running))
         .bind(finished.as_ref().map_or(0, |f| f.id))
         .fetch_optional(&mut *conn)
-        .await?
-        .as_ref()
-        .map(full_check)
-        .transpose()?;
+        .await?;
     Ok((finished, running))
 }
 

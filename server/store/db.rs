@@ -33,7 +33,13 @@ pub(super) struct Health {
     options: AnyConnectOptions,
     /// SQLite is a file: there is no server to lose.
     has_server: bool,
+    /// When a statement was last given up on while the server might still carry it out.
+    last_abandoned: std::sync::Mutex<Option<Instant>>,
 }
+
+/// How long after a statement was given up on the pools close the connections handed back,
+/// instead of lending them again.
+const DISTRUST_AFTER_ABANDON: Duration = Duration::from_secs(10);
 
 /// How long one direct check may take.
 const PROBE_TIMEOUT: Duration = Duration::from_secs(1);
@@ -47,7 +53,25 @@ impl Health {
             probe: tokio::sync::Mutex::new(None),
             options,
             has_server,
+            last_abandoned: std::sync::Mutex::new(None),
         }
+    }
+
+    /// A statement was given up on (see [`bounded`]).
+    fn abandoned(&self) {
+        *self.last_abandoned.lock().expect("never poisoned") = Some(Instant::now());
+    }
+
+    /// Whether a connection handed back now may be lent again: not while the server is
+    /// believed down, nor shortly after a statement was given up on, since that connection may
+    /// be in the middle of a transaction nobody will finish (the pool then opens a new one).
+    pub(super) fn may_reuse(&self) -> bool {
+        let recent = self
+            .last_abandoned
+            .lock()
+            .expect("never poisoned")
+            .is_some_and(|at| at.elapsed() < DISTRUST_AFTER_ABANDON);
+        !self.is_down() && !recent
     }
 
     pub(super) fn is_down(&self) -> bool {
@@ -209,9 +233,19 @@ async fn bounded<T>(
     work: impl Future<Output = Result<T, sqlx::Error>>,
 ) -> Result<T, sqlx::Error> {
     let result = match limit {
-        Some(limit) => tokio::time::timeout(limit, work)
-            .await
-            .unwrap_or_else(|_| Err(timed_out())),
+        Some(limit) => {
+            let work = std::pin::pin!(work);
+            match tokio::time::timeout(limit, work).await {
+                Ok(result) => result,
+                Err(_) => {
+                    // Noted before the work is dropped: dropping it hands its connection back
+                    // with a statement the server may still carry out (a BEGIN among them), so
+                    // the pool must close that connection rather than lend it again.
+                    health.abandoned();
+                    Err(timed_out())
+                }
+            }
+        }
         None => work.await,
     };
     health.note(&result);
@@ -253,6 +287,7 @@ impl<T> Stream for BoundedStream<'_, T> {
                 match timer.as_mut().poll(cx) {
                     Poll::Ready(()) => {
                         self.ended = true;
+                        self.health.abandoned();
                         self.health.note::<()>(&Err(timed_out()));
                         Poll::Ready(Some(Err(timed_out())))
                     }

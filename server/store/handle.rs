@@ -111,8 +111,14 @@ impl Store {
             .map_err(|e| StoreError::Config(format!("bad database URL: {e}")))?;
         let in_memory = url.contains(":memory:");
         let wait = settings.timeout;
+        let health = Arc::new(Health::new(options.clone(), backend == Backend::Postgres));
         let pool = |max: u32, read_only: bool| {
+            let health = health.clone();
             AnyPoolOptions::new()
+                .after_release(move |_, _| {
+                    let reuse = health.may_reuse();
+                    Box::pin(async move { Ok(reuse) })
+                })
                 // `acquire` below applies the timeout; this one only backs it up.
                 .acquire_timeout(wait + CLIENT_MARGIN)
                 .max_connections(max)
@@ -154,7 +160,7 @@ impl Store {
             writer,
             backend,
             settings,
-            health: Arc::new(Health::new(options, backend == Backend::Postgres)),
+            health,
             usage: Arc::default(),
             full_check: Arc::default(),
             writes: Arc::default(),

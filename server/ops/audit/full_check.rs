@@ -15,7 +15,7 @@ use std::time::Duration;
 use serde::{Deserialize, Serialize};
 
 use super::{Verification, conn, require_auditor};
-use crate::domain::{Timestamp, User};
+use crate::domain::User;
 use crate::ops::{OpError, OpResult};
 use crate::store::Store;
 use crate::store::audited::{self, Finding};
@@ -25,17 +25,11 @@ use crate::store::events;
 /// How often a running full check writes how far it got.
 const PROGRESS_EVERY: Duration = Duration::from_secs(1);
 
-/// A full check as auditors see it.
+/// A full check as auditors see it: how far it got, and once finished what it found.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize, utoipa::ToSchema)]
 pub struct FullCheckView {
-    pub id: i64,
-    /// Who asked for it (`cli` for the command line).
-    pub requested_by: String,
-    pub started_at: Timestamp,
-    pub finished_at: Option<Timestamp>,
-    /// The events in the record when it started, and how many it has read.
-    pub events_total: i64,
-    pub events_done: i64,
+    #[serde(flatten)]
+    pub check: FullCheck,
     /// Whether everything held; absent while it runs.
     pub ok: Option<bool>,
     /// What `cutpoints audit verify` would print for it; absent while it runs.
@@ -46,12 +40,7 @@ impl FullCheckView {
     fn of(check: &FullCheck) -> FullCheckView {
         let found = finding(check);
         FullCheckView {
-            id: check.id,
-            requested_by: check.requested_by.clone(),
-            started_at: check.started_at,
-            finished_at: check.finished_at,
-            events_total: check.events_total,
-            events_done: check.events_done,
+            check: check.clone(),
             ok: found.as_ref().map(|v| v.ok),
             line: found.map(|v| v.line),
         }

@@ -13,6 +13,7 @@ mod full_check;
 mod record;
 mod timeline;
 
+pub use crate::store::checkpoint::FullCheck;
 pub use as_of::{AsOf, AsOfEntry, VersionBrief, as_of};
 pub use exceptions::{
     EventException, Exceptions, ExceptionsCache, LapsedReview, UnsignedVersion, exceptions,

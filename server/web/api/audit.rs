@@ -1,15 +1,14 @@
 //! `/api/v1/audit...`: the auditor's views as JSON, and the event record as JSON and CSV.
 
 use axum::Json;
-use axum::extract::{FromRequestParts, State};
-use axum::http::request::Parts;
+use axum::extract::State;
 use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::Deserialize;
 
 use super::metrics::MetricCall;
 use super::openapi::{BadRequest, Forbidden, NotFound, Unauthenticated, Unavailable};
-use super::{Call, path_params};
+use super::{Call, IdOf, PathId, located};
 use crate::domain::MetricKey;
 use crate::domain::csv_out::{Cell, CsvOut};
 use crate::ops::audit::EventFilter;
@@ -231,26 +230,14 @@ pub async fn start_full_check(
 ) -> Result<Response, ApiError> {
     let started = audit::start_full_check(&state.store, caller.user()).await?;
     let location = format!("/api/v1/audit/full-checks/{}", started.id);
-    let mut response = (StatusCode::ACCEPTED, Json(started)).into_response();
-    response.headers_mut().insert(
-        header::LOCATION,
-        HeaderValue::from_str(&location).expect("ids are digits"),
-    );
-    Ok(response)
+    Ok(located(StatusCode::ACCEPTED, started, &location))
 }
 
-/// A full check's id from the path; anything but a whole number is no such check.
-pub struct FullCheckId(pub i64);
+/// Full checks, as ids in paths name them.
+pub struct FullChecks;
 
-impl FromRequestParts<AppState> for FullCheckId {
-    type Rejection = ApiError;
-
-    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let raw: String = path_params(parts, state).await?;
-        raw.parse()
-            .map(FullCheckId)
-            .map_err(|_| ApiError::not_found(format!("no full check with id {raw:?}")))
-    }
+impl IdOf for FullChecks {
+    const NOUN: &'static str = "full check";
 }
 
 /// `GET /api/v1/audit/full-checks/{id}`: a full check's progress, then its finding.
@@ -258,7 +245,7 @@ impl FromRequestParts<AppState> for FullCheckId {
     params(("id" = i64, Path, description = "Full check id")),
     responses((status = 200, description = "How far the full check got, and what it found once finished", body = FullCheckView),
         Unauthenticated, Forbidden, NotFound, Unavailable))]
-pub async fn full_check(call: Call<FullCheckId>) -> Result<Json<FullCheckView>, ApiError> {
+pub async fn full_check(call: Call<PathId<FullChecks>>) -> Result<Json<FullCheckView>, ApiError> {
     Ok(Json(
         audit::full_check(&call.state.store, call.user(), call.path.0).await?,
     ))

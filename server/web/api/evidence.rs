@@ -231,13 +231,14 @@ pub struct ProposalQuery {
 pub async fn proposal(
     State(state): State<AppState>,
     _caller: ApiCaller,
-    ProposalId(id): ProposalId,
+    proposal: ProposalId,
     ApiQuery(query): ApiQuery<ProposalQuery>,
 ) -> Result<Json<ProposalBacktest>, ApiError> {
     let window = window_of(&query.from, &query.to)?;
     let share = evidence::critical_share(query.critical_share)?;
     let backtest =
-        evidence::proposal_backtest(&state.store, id, query.revision, window, share).await?;
+        evidence::proposal_backtest(&state.store, proposal.0, query.revision, window, share)
+            .await?;
     Ok(Json(backtest))
 }
 

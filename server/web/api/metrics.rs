@@ -2,9 +2,9 @@
 
 use axum::Json;
 use axum::extract::{FromRequestParts, State};
+use axum::http::StatusCode;
 use axum::http::request::Parts;
-use axum::http::{HeaderValue, StatusCode, header};
-use axum::response::{IntoResponse, Response};
+use axum::response::Response;
 use serde::{Deserialize, Serialize};
 
 use super::openapi::{
@@ -63,12 +63,7 @@ pub async fn create(
 ) -> Result<Response, ApiError> {
     let metric = ops::metrics::create(&state.store, caller.user(), &input).await?;
     let location = format!("/api/v1/metrics/{}", metric.key);
-    let mut response = (StatusCode::CREATED, Json(metric)).into_response();
-    response.headers_mut().insert(
-        header::LOCATION,
-        HeaderValue::from_str(&location).expect("keys are URL-safe"),
-    );
-    Ok(response)
+    Ok(super::located(StatusCode::CREATED, metric, &location))
 }
 
 #[derive(Deserialize, Default, utoipa::IntoParams)]

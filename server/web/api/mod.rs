@@ -11,6 +11,8 @@ pub mod published;
 use axum::Json;
 use axum::extract::{FromRequestParts, Path};
 use axum::http::request::Parts;
+use axum::http::{HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
 use serde::Serialize;
 use serde::de::DeserializeOwned;
 
@@ -62,6 +64,36 @@ where
         .await
         .map_err(|e| ApiError::bad_request(format!("bad path: {}", e.body_text())))?;
     Ok(params)
+}
+
+/// A JSON answer that names where its subject lives (`Location`, RFC 9110 §10.2.2): a
+/// resource just created, or a job just started.
+pub fn located(status: StatusCode, body: impl Serialize, location: &str) -> Response {
+    let mut response = (status, Json(body)).into_response();
+    response.headers_mut().insert(
+        header::LOCATION,
+        HeaderValue::from_str(location).expect("locations are built from URL-safe parts"),
+    );
+    response
+}
+
+/// What a whole-number id in a path names, for the answer when it is not one.
+pub trait IdOf {
+    const NOUN: &'static str;
+}
+
+/// A whole-number id from the path; anything but a whole number is no such thing (404).
+pub struct PathId<T>(pub i64, std::marker::PhantomData<T>);
+
+impl<T: IdOf> FromRequestParts<AppState> for PathId<T> {
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
+        let raw: String = path_params(parts, state).await?;
+        raw.parse()
+            .map(|id| PathId(id, std::marker::PhantomData))
+            .map_err(|_| ApiError::not_found(format!("no {} with id {raw:?}", T::NOUN)))
+    }
 }
 
 /// Who the credentials belong to.

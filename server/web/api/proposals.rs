@@ -1,9 +1,8 @@
 //! `/api/v1/proposals` and the workflow endpoints under `/api/v1/metrics/{key}`.
 
 use axum::Json;
-use axum::extract::{FromRequest, FromRequestParts, Request, State};
-use axum::http::request::Parts;
-use axum::http::{HeaderValue, StatusCode, header};
+use axum::extract::{FromRequest, Request, State};
+use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
@@ -13,7 +12,7 @@ use super::openapi::{
     BadRequest, Forbidden, NotFound, NotJson, ProposalMovedOn, Throttled, TooLarge,
     Unauthenticated, Unavailable,
 };
-use super::{Call, path_params};
+use super::{Call, IdOf, PathId};
 use crate::domain::Problems;
 use crate::domain::proposal::{ContentInput, Verdict};
 use crate::ops::metrics;
@@ -24,19 +23,15 @@ use crate::web::auth::ApiCaller;
 use crate::web::error::{ApiError, ErrorBody};
 use crate::web::extract::ApiJson;
 
-/// A proposal id from the path; anything but a whole number is no such proposal.
-pub struct ProposalId(pub i64);
+/// Proposals, as ids in paths name them.
+pub struct Proposals;
 
-impl FromRequestParts<AppState> for ProposalId {
-    type Rejection = ApiError;
-
-    async fn from_request_parts(parts: &mut Parts, state: &AppState) -> Result<Self, ApiError> {
-        let raw: String = path_params(parts, state).await?;
-        raw.parse()
-            .map(ProposalId)
-            .map_err(|_| ApiError::not_found(format!("no proposal with id {raw:?}")))
-    }
+impl IdOf for Proposals {
+    const NOUN: &'static str = "proposal";
 }
+
+/// A proposal id from the path; anything but a whole number is no such proposal.
+pub type ProposalId = PathId<Proposals>;
 
 /// A call about one proposal: the caller's credential, checked first, and the proposal named
 /// in the path.
@@ -83,14 +78,11 @@ async fn proposal_response(
     status: StatusCode,
 ) -> Result<Response, ApiError> {
     let view = flow::get(&state.store, id, Some(caller.user())).await?.view;
-    let mut response = (status, Json(view)).into_response();
-    if status == StatusCode::CREATED {
-        response.headers_mut().insert(
-            header::LOCATION,
-            HeaderValue::from_str(&format!("/api/v1/proposals/{id}")).expect("ids are digits"),
-        );
-    }
-    Ok(response)
+    Ok(if status == StatusCode::CREATED {
+        super::located(status, view, &format!("/api/v1/proposals/{id}"))
+    } else {
+        (status, Json(view)).into_response()
+    })
 }
 
 /// `POST /api/v1/metrics/{key}/proposals`: proposes thresholds for a metric (its owners).

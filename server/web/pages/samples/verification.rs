@@ -1,7 +1,7 @@
 //! Sample data of the audit overview: a verification, its latest full check and one running.
 
 use super::fixtures::at;
-use crate::ops::audit::{FullCheckView, Verification};
+use crate::ops::audit::{FullCheck, FullCheckView, Verification};
 
 pub fn verification(ok: bool) -> Verification {
     Verification {
@@ -15,22 +15,28 @@ pub fn verification(ok: bool) -> Verification {
         difference_count: 0,
         verified_before: 40,
         last_full_check: Some(FullCheckView {
-            id: 3,
-            requested_by: "cli".into(),
-            started_at: at("2026-03-01T09:00:00Z"),
-            finished_at: Some(at("2026-03-01T09:00:05Z")),
-            events_total: 40,
-            events_done: 40,
+            check: FullCheck {
+                id: 3,
+                requested_by: "cli".into(),
+                started_at: at("2026-03-01T09:00:00Z"),
+                finished_at: Some(at("2026-03-01T09:00:05Z")),
+                events_total: 40,
+                events_done: 40,
+                result: None,
+            },
             ok: Some(ok),
             line: Some("ok 40 abab".into()),
         }),
         running_full_check: Some(FullCheckView {
-            id: 4,
-            requested_by: "samir".into(),
-            started_at: at("2026-03-02T09:00:00Z"),
-            finished_at: None,
-            events_total: 42,
-            events_done: 21,
+            check: FullCheck {
+                id: 4,
+                requested_by: "samir".into(),
+                started_at: at("2026-03-02T09:00:00Z"),
+                finished_at: None,
+                events_total: 42,
+                events_done: 21,
+                result: None,
+            },
             ok: None,
             line: None,
         }),
