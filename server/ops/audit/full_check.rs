@@ -5,8 +5,8 @@
 //!   cost follows what changed, not the size of the record.
 //! - The full check (`cutpoints audit verify`, and auditors' "check everything" button) reads
 //!   every event and replays them all against the audited tables. Asked for from the web, it
-//!   runs in the background, its progress kept in the database, and its finding stands beside
-//!   every quick check until a later full check.
+//!   runs on a thread of its own, its progress kept in the database, and its finding stands
+//!   beside every quick check until a later full check.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicI64, Ordering};
@@ -112,13 +112,28 @@ pub async fn start_full_check(store: &Store, by: &User) -> OpResult<FullCheckSta
         }
     };
     store.set_full_check(Some(id));
-    let store = store.clone();
-    tokio::spawn(async move {
-        if let Err(e) = run_recorded(&store, Some(id), None).await {
-            tracing::error!(error = %e, check = id, "the full check could not finish");
-        }
-        store.set_full_check(None);
-    });
+    // A thread of its own, off the threads that serve requests: it hashes every event.
+    let (handle, store) = (store.clone(), store.clone());
+    let spawned = std::thread::Builder::new()
+        .name("full-check".into())
+        .spawn(move || {
+            let runtime = tokio::runtime::Builder::new_current_thread()
+                .enable_all()
+                .build();
+            match runtime {
+                Ok(runtime) => runtime.block_on(async {
+                    if let Err(e) = run_recorded(&store, Some(id), None).await {
+                        tracing::error!(error = %e, check = id, "the full check could not finish");
+                    }
+                }),
+                Err(e) => tracing::error!(error = %e, "no runtime for the full check"),
+            }
+            store.set_full_check(None);
+        });
+    if let Err(e) = spawned {
+        handle.set_full_check(None);
+        tracing::error!(error = %e, "the full check could not start");
+    }
     Ok(FullCheckStarted {
         id,
         already_running: false,
