@@ -694,7 +694,10 @@ impl Server {
 }
 
 /// The answers measured: a name and the path asked, given the fixture.
-fn answers() -> [(&'static str, fn(&Meta) -> String); 10] {
+/// An answer's name and how its path is made from the fixture.
+type Answer = (&'static str, fn(&Meta) -> String);
+
+fn answers() -> [Answer; 10] {
     [
         ("`/audit` index page", |_| "/audit".into()),
         ("`GET /api/v1/audit/verify`", |_| {
