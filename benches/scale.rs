@@ -671,7 +671,21 @@ impl Server {
     }
 
     /// One request on a fresh connection, its body read to the end; the seconds it took.
-    fn ask(&self, path: &str) -> f64 {
+    /// A 503 (the server found the database slow to answer and refuses for a moment) is
+    /// counted in `refused`, waited out and asked again; only the answer that succeeds counts.
+    fn ask(&self, path: &str, refused: &mut usize) -> f64 {
+        loop {
+            match self.ask_once(path) {
+                Some(seconds) => return seconds,
+                None => {
+                    *refused += 1;
+                    std::thread::sleep(Duration::from_secs(1));
+                }
+            }
+        }
+    }
+
+    fn ask_once(&self, path: &str) -> Option<f64> {
         let started = Instant::now();
         let mut stream = TcpStream::connect(("127.0.0.1", self.port)).unwrap();
         write!(
@@ -684,12 +698,15 @@ impl Server {
         stream.read_to_end(&mut answer).unwrap();
         let seconds = started.elapsed().as_secs_f64();
         let head = String::from_utf8_lossy(&answer[..answer.len().min(200)]).to_string();
+        if head.starts_with("HTTP/1.1 503") {
+            return None;
+        }
         assert!(
             head.starts_with("HTTP/1.1 200"),
             "{path}: {}",
             head.lines().next().unwrap_or("no answer")
         );
-        seconds
+        Some(seconds)
     }
 }
 
@@ -699,12 +716,13 @@ type Answer = (&'static str, fn(&Meta) -> String);
 
 fn answers() -> [Answer; 10] {
     [
+        // First, so that the memory it keeps is seen on a server that has answered nothing.
+        ("`GET /api/v1/audit/exceptions`", |_| {
+            "/api/v1/audit/exceptions".into()
+        }),
         ("`/audit` index page", |_| "/audit".into()),
         ("`GET /api/v1/audit/verify`", |_| {
             "/api/v1/audit/verify".into()
-        }),
-        ("`GET /api/v1/audit/exceptions`", |_| {
-            "/api/v1/audit/exceptions".into()
         }),
         ("`GET /api/v1/published/{key}`", |m| {
             format!("/api/v1/published/{}", m.key)
@@ -734,7 +752,8 @@ struct Row {
     tenth: (f64, f64),
     full: (f64, f64),
     samples: usize,
-    rss_full_mib: f64,
+    /// The full-size server's RSS before the answer's first request and after its last.
+    rss_full_mib: (f64, f64),
     note: String,
 }
 
@@ -754,12 +773,13 @@ fn measure(backend: &'static str, small: &Server, large: &Server) -> Vec<Row> {
         let is_exceptions = answer.contains("exceptions");
         let before = (small.rss_mib(), large.rss_mib());
         // Warm-up: one of each, more where they are quick.
-        let first = large.ask(&large_path);
-        small.ask(&small_path);
+        let mut refused = 0;
+        let first = large.ask(&large_path, &mut refused);
+        small.ask(&small_path, &mut refused);
         if first < 0.5 {
             for _ in 0..3 {
-                small.ask(&small_path);
-                large.ask(&large_path);
+                small.ask(&small_path, &mut refused);
+                large.ask(&large_path, &mut refused);
             }
         }
         let after_first = (small.rss_mib(), large.rss_mib());
@@ -771,15 +791,15 @@ fn measure(backend: &'static str, small: &Server, large: &Server) -> Vec<Row> {
             }
             // Alternating, and which goes first alternates too.
             if i % 2 == 0 {
-                a.push(small.ask(&small_path));
-                b.push(large.ask(&large_path));
+                a.push(small.ask(&small_path, &mut refused));
+                b.push(large.ask(&large_path, &mut refused));
             } else {
-                b.push(large.ask(&large_path));
-                a.push(small.ask(&small_path));
+                b.push(large.ask(&large_path, &mut refused));
+                a.push(small.ask(&small_path, &mut refused));
             }
         }
         let samples = a.len();
-        let note = if is_exceptions {
+        let mut note = if is_exceptions {
             format!(
                 "RSS one tenth {:.0} -> {:.0} (first) -> {:.0} MiB, full {:.0} -> {:.0} (first) -> {:.0} MiB",
                 before.0,
@@ -792,21 +812,30 @@ fn measure(backend: &'static str, small: &Server, large: &Server) -> Vec<Row> {
         } else {
             String::new()
         };
+        if refused > 0 {
+            note.push_str(&format!(
+                "{}{refused} requests answered 503 and asked again",
+                if note.is_empty() { "" } else { "; " }
+            ));
+        }
         let row = Row {
             answer,
             backend,
             tenth: percentiles(a),
             full: percentiles(b),
             samples,
-            rss_full_mib: large.rss_mib(),
+            rss_full_mib: (before.1, large.rss_mib()),
             note,
         };
         eprintln!(
-            "  {answer}: {} / {} against {} / {}",
+            "  {answer}: {} / {} against {} / {}; full-size RSS {:.0} -> {:.0} MiB {}",
             show(row.tenth.0),
             show(row.tenth.1),
             show(row.full.0),
-            show(row.full.1)
+            show(row.full.1),
+            row.rss_full_mib.0,
+            row.rss_full_mib.1,
+            row.note
         );
         rows.push(row);
     }
@@ -827,6 +856,7 @@ struct Measured {
     backend: &'static str,
     metas: (Meta, Meta),
     rows: Vec<Row>,
+    rss_start: (f64, f64),
     rss_after: (f64, f64),
 }
 
@@ -843,12 +873,14 @@ async fn run_backend(backend: &'static str, sizes: (Size, Size)) -> Measured {
             backend,
             metas: (small_meta, large_meta),
             rows: Vec::new(),
+            rss_start: (0.0, 0.0),
             rss_after: (0.0, 0.0),
         };
     }
     let small = Server::start(&small_url, small_meta.clone()).await;
     let large = Server::start(&large_url, large_meta.clone()).await;
     eprintln!("{backend}: measuring");
+    let rss_start = (small.rss_mib(), large.rss_mib());
     let rows = measure(backend, &small, &large);
     let rss_after = (small.rss_mib(), large.rss_mib());
     drop(small);
@@ -858,6 +890,7 @@ async fn run_backend(backend: &'static str, sizes: (Size, Size)) -> Measured {
         backend,
         metas: (small_meta, large_meta),
         rows,
+        rss_start,
         rss_after,
     }
 }
@@ -899,13 +932,13 @@ async fn main() {
     }
     println!();
     println!(
-        "| answer | backend | one tenth p50 / p95 | full p50 / p95 | growth (p50) | requests each | full-size server RSS after |"
+        "| answer | backend | one tenth p50 / p95 | full p50 / p95 | growth (p50) | requests each | full-size server RSS before -> after |"
     );
     println!("|---|---|---|---|---|---|---|");
     for m in &all {
         for r in &m.rows {
             println!(
-                "| {} | {} | {} / {} | {} / {} | {:.1}x | {} | {:.0} MiB |",
+                "| {} | {} | {} / {} | {} / {} | {:.1}x | {} | {:.0} -> {:.0} MiB |",
                 r.answer,
                 r.backend,
                 show(r.tenth.0),
@@ -914,7 +947,8 @@ async fn main() {
                 show(r.full.1),
                 r.full.0 / r.tenth.0,
                 r.samples,
-                r.rss_full_mib
+                r.rss_full_mib.0,
+                r.rss_full_mib.1
             );
         }
     }
@@ -924,8 +958,8 @@ async fn main() {
             println!("- {}, {}: {}", m.backend, r.answer, r.note);
         }
         println!(
-            "- {}: server RSS after the run, one tenth {:.0} MiB, full size {:.0} MiB",
-            m.backend, m.rss_after.0, m.rss_after.1
+            "- {}: server RSS when started, one tenth {:.0} MiB, full size {:.0} MiB; after the run, {:.0} MiB and {:.0} MiB",
+            m.backend, m.rss_start.0, m.rss_start.1, m.rss_after.0, m.rss_after.1
         );
     }
 }
