@@ -679,6 +679,7 @@ impl Server {
                 Some(seconds) => return seconds,
                 None => {
                     *refused += 1;
+                    assert!(*refused < 120, "{path}: the server keeps answering 503");
                     std::thread::sleep(Duration::from_secs(1));
                 }
             }
