@@ -76,6 +76,9 @@ pub async fn check(
     })
 }
 
+/// How many events the quick check replays into one replayer before starting a fresh one.
+const REPLAY_KEPT: usize = 1_000;
+
 /// The quick check: the chain from an event verified earlier (`from`; the first event when
 /// `None`) to the head, each event after it replayed on its own (its payload must be readable
 /// and its content must hash to what it records). It does not compare the audited tables:
@@ -86,10 +89,17 @@ pub async fn check_since(
     known_head: Option<(i64, String)>,
 ) -> StoreResult<Finding> {
     let mut db = store.begin_snapshot().await?;
+    // Each event is replayed on its own merits, so nothing need be kept between them: a fresh
+    // replayer now and then keeps the memory of a first check (every event) to a page's worth.
     let mut replayer = Replayer::new();
+    let mut replayed = 0_usize;
     let walked = super::events::walk(&mut db, from, known_head, |row, parts| {
         if !shapes_rows(parts.action) {
             return Ok(Ok(()));
+        }
+        replayed += 1;
+        if replayed.is_multiple_of(REPLAY_KEPT) {
+            replayer = Replayer::new();
         }
         let entry: Entry = super::events::event_from_row(row)?;
         Ok(replayer.apply(&entry.event))
