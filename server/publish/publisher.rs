@@ -271,8 +271,11 @@ impl Publisher {
             None => content(store, as_of_t, known_t, (as_of, known_at)).await?,
         };
         let rendered = render(Arc::new(c), self.signer.clone()).await;
-        // A set that depends on the time of asking (a time left out) is not kept.
-        if as_of.is_some() && known_at.is_some() {
+        // A set asked for at a valid time is kept: left out, `known_at` is now, and what was
+        // approved by now changes only with an event, which moves the head in the key. Left
+        // out, `as_of` is now too, and a scheduled version takes effect with no event at all,
+        // so such a set is not kept.
+        if as_of.is_some() {
             self.renders_lock()
                 .put(cache_key, rendered.clone(), self.budget);
         }

@@ -75,6 +75,17 @@ crate::on_both_backends! {
                 }
             }
         }
+        // A past set kept from before changes when a later approval reaches back into it.
+        let (_, kept) = get(&team, &token, &format!("/api/v1/published?as_of={}", day(35))).await;
+        assert_eq!(kept["set"][METRIC]["version"], 2);
+        team.app.store.set_clock(Some(day(41)));
+        let mut body = hib(1.0, 2.6, 3.0, 4.0, "v3, recorded late, in force from day 33");
+        body["effective_from"] = json!(day(33).to_string());
+        team.agree(body).await;
+        let (_, now) = get(&team, &token, &format!("/api/v1/published?as_of={}", day(35))).await;
+        assert_eq!(now["set"][METRIC]["version"], 3, "{now}");
+        let (_, one) = get(&team, &token, &format!("/api/v1/published/{METRIC}?as_of={}", day(35))).await;
+        assert_eq!(one["set"][METRIC]["version"], 3, "{one}");
         team.app.store.set_clock(None);
     }
 
