@@ -18,14 +18,7 @@ async fn auditor(team: &Team) -> String {
 }
 
 async fn get(team: &Team, token: &str, path: &str) -> (u16, reqwest::header::HeaderMap, String) {
-    let r = team
-        .app
-        .http
-        .get(team.app.url(path))
-        .bearer_auth(token)
-        .send()
-        .await
-        .unwrap();
+    let r = team.app.get_as(token, path).await;
     (
         r.status().as_u16(),
         r.headers().clone(),

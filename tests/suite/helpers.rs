@@ -250,6 +250,16 @@ impl TestApp {
             .0
     }
 
+    /// `GET path` with `token` as the bearer credential.
+    pub async fn get_as(&self, token: &str, path: &str) -> reqwest::Response {
+        self.http
+            .get(self.url(path))
+            .bearer_auth(token)
+            .send()
+            .await
+            .unwrap()
+    }
+
     /// A browser-like client (cookies kept, redirects not followed) signed in as `username`.
     pub async fn signed_in(&self, username: &str) -> Browser {
         let browser = Browser::new(self);

@@ -11,14 +11,7 @@ use crate::workflow_support::{METRIC, Team, hib};
 const OTHER: &str = "docks.turnaround";
 
 async fn get(team: &Team, token: &str, path: &str) -> (u16, Value) {
-    let r = team
-        .app
-        .http
-        .get(team.app.url(path))
-        .bearer_auth(token)
-        .send()
-        .await
-        .unwrap();
+    let r = team.app.get_as(token, path).await;
     (r.status().as_u16(), r.json().await.unwrap())
 }
 
